@@ -1,1 +1,17 @@
-fn main(){}
+//! The `slowfield` command: parses the command line and hands over to the library.
+
+use std::process::ExitCode;
+
+use clap::Parser;
+use slowfield::cli::{run, Cli};
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            ExitCode::from(1)
+        }
+    }
+}
