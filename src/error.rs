@@ -66,7 +66,10 @@ impl fmt::Display for InputError {
         }
         write!(f, "{}", self.message)?;
         if let Some(hint) = &self.hint {
-            write!(f, ". {hint}")?;
+            let mut c = hint.chars();
+            if let Some(first) = c.next() {
+                write!(f, ". {}{}", first.to_uppercase(), c.as_str())?;
+            }
         }
         Ok(())
     }

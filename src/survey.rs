@@ -279,6 +279,15 @@ pub fn stations_surface(picks: &[Pick]) -> Surface {
     Surface::through(&pts)
 }
 
+/// A number with three significant digits, in plain or scientific notation.
+fn fmt_sig(v: f64) -> String {
+    if v != 0.0 && (v.abs() < 0.01 || v.abs() >= 1e6) {
+        format!("{v:.2e}")
+    } else {
+        format!("{v:.3}")
+    }
+}
+
 pub(crate) fn fmt_ms(t: f64) -> String {
     format!("{:.2}", t * 1e3)
 }
@@ -527,10 +536,10 @@ fn parse_picks(path: &Path, text: &str) -> Result<Vec<Pick>, InputErrors> {
                     path,
                     line,
                     format!(
-                        "{} ms at {:.2} m offset means an apparent velocity of {:.3} m/s, slower than any ground ({} m/s)",
+                        "{} ms at {:.2} m offset means an apparent velocity of {} m/s, slower than any ground ({} m/s)",
                         fmt_ms(time),
                         offset,
-                        offset / time,
+                        fmt_sig(offset / time),
                         SLOWEST_APPARENT_MPS
                     ),
                 )
