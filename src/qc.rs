@@ -330,8 +330,8 @@ fn reciprocals(survey: &Survey, st: &QcSettings) -> (Vec<ReciprocalPair>, Vec<Re
 /// the two nearest on one side at the ends.
 fn predict(pts: &[(f64, f64)], k: usize) -> Option<f64> {
     let x = pts[k].0;
-    let lo = (0..k).rev().next();
-    let hi = (k + 1..pts.len()).next();
+    let lo = k.checked_sub(1);
+    let hi = (k + 1 < pts.len()).then_some(k + 1);
     let line = |a: (f64, f64), b: (f64, f64)| {
         let dx = b.0 - a.0;
         if dx.abs() < 1e-9 {

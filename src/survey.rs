@@ -407,9 +407,7 @@ pub(crate) fn number(path: &Path, line: u64, col: &str, field: &str) -> Result<f
 fn parse_picks(path: &Path, text: &str) -> Result<Vec<Pick>, InputErrors> {
     if text.trim().is_empty() {
         return Err(InputError::file(path, "the file is empty")
-            .hint(format!(
-                "a picks file starts with the header line 'shot,source_x,source_z,receiver_x,receiver_z,time_ms' (optional: sigma_ms)"
-            ))
+            .hint("a picks file starts with the header line 'shot,source_x,source_z,receiver_x,receiver_z,time_ms' (optional: sigma_ms)")
             .into());
     }
     let recs = records(path, text)?;

@@ -16,7 +16,9 @@ struct Case {
 
 impl Case {
     fn new() -> Self {
-        Case { dir: tempfile::tempdir().unwrap() }
+        Case {
+            dir: tempfile::tempdir().unwrap(),
+        }
     }
     fn file(&self, name: &str, bytes: &[u8]) -> PathBuf {
         let p = self.dir.path().join(name);
@@ -47,10 +49,16 @@ fn assert_located(code: i32, err: &str, line: Option<u64>, column: Option<&str>,
     assert_ne!(code, 0, "{what}: exit 0; stderr: {err}");
     assert!(err.contains("picks.csv"), "{what}: no file name in: {err}");
     if let Some(l) = line {
-        assert!(err.contains(&format!("picks.csv:{l}:")), "{what}: no line {l} in: {err}");
+        assert!(
+            err.contains(&format!("picks.csv:{l}:")),
+            "{what}: no line {l} in: {err}"
+        );
     }
     if let Some(c) = column {
-        assert!(err.contains(&format!("column '{c}'")), "{what}: no column {c} in: {err}");
+        assert!(
+            err.contains(&format!("column '{c}'")),
+            "{what}: no column {c} in: {err}"
+        );
     }
 }
 
@@ -88,7 +96,9 @@ fn missing_required_column() {
 #[test]
 fn unknown_extra_column_is_named() {
     let c = Case::new();
-    let (code, err) = c.check(b"shot,source_x,source_z,receiver_x,receiver_z,time_ms,quality\nA,0,0,5,0,10,good\n");
+    let (code, err) = c.check(
+        b"shot,source_x,source_z,receiver_x,receiver_z,time_ms,quality\nA,0,0,5,0,10,good\n",
+    );
     assert_located(code, &err, Some(1), None, "unknown column");
     assert!(err.contains("'quality'"), "{err}");
 }
@@ -108,7 +118,12 @@ fn too_many_and_too_few_fields() {
 
 #[test]
 fn bad_times() {
-    for (t, what) in [("abc", "not a number"), ("NaN", "not a finite"), ("inf", "not a finite"), ("-3", "negative")] {
+    for (t, what) in [
+        ("abc", "not a number"),
+        ("NaN", "not a finite"),
+        ("inf", "not a finite"),
+        ("-3", "negative"),
+    ] {
         let c = Case::new();
         let mut s = good_rows();
         s.push_str(&format!("A,0,0,12,0,{t},0.5\n"));
@@ -161,7 +176,9 @@ fn zero_offset_with_late_time() {
 #[test]
 fn binary_garbage() {
     let c = Case::new();
-    let bytes: Vec<u8> = (0..2000u32).map(|k| (k.wrapping_mul(2654435761) >> 13) as u8).collect();
+    let bytes: Vec<u8> = (0..2000u32)
+        .map(|k| (k.wrapping_mul(2654435761) >> 13) as u8)
+        .collect();
     let (code, err) = c.check(&bytes);
     assert_located(code, &err, None, None, "binary");
     assert!(err.contains("binary") || err.contains("UTF-8"), "{err}");
@@ -177,13 +194,17 @@ fn duplicate_picks_reported_with_both_lines() {
     let p = c.dir.path().join("picks.csv");
     let out = bin().arg("check").arg(&p).output().unwrap();
     let text = String::from_utf8_lossy(&out.stdout);
-    assert!(text.contains("lines 4 and 8") && text.contains("duplicate"), "{text}");
+    assert!(
+        text.contains("lines 4 and 8") && text.contains("duplicate"),
+        "{text}"
+    );
 }
 
 #[test]
 fn time_in_seconds_is_accepted() {
     let c = Case::new();
-    let s = "shot,source_x,source_z,receiver_x,receiver_z,time_s\nA,0,0,5,0,0.010\nA,0,0,10,0,0.020\n";
+    let s =
+        "shot,source_x,source_z,receiver_x,receiver_z,time_s\nA,0,0,5,0,0.010\nA,0,0,10,0,0.020\n";
     let (code, err) = c.check(s.as_bytes());
     assert_eq!(code, 0, "{err}");
 }
@@ -213,7 +234,10 @@ fn model_that_is_not_a_regular_grid() {
     let mut s = regular_model();
     s.push_str("4.5,0,500\n"); // line 14
     let e = model_error(&s);
-    assert!(e.contains("model.csv:14:") && e.contains("column 'x'") && e.contains("x=4.5"), "{e}");
+    assert!(
+        e.contains("model.csv:14:") && e.contains("column 'x'") && e.contains("x=4.5"),
+        "{e}"
+    );
     assert!(e.contains("regular spacing"), "{e}");
 }
 
@@ -222,7 +246,12 @@ fn model_with_zero_or_negative_velocity() {
     for bad in ["0", "-300"] {
         let s = regular_model().replacen("1,-1,500", &format!("1,-1,{bad}"), 1);
         let e = model_error(&s);
-        assert!(e.contains("model.csv:7:") && e.contains("column 'velocity_mps'") && e.contains("not positive"), "{e}");
+        assert!(
+            e.contains("model.csv:7:")
+                && e.contains("column 'velocity_mps'")
+                && e.contains("not positive"),
+            "{e}"
+        );
     }
 }
 
@@ -238,7 +267,13 @@ fn nothing_is_written_on_bad_input() {
     let c = Case::new();
     let p = c.file("picks.csv", b"");
     let out_dir: &Path = &c.dir.path().join("out");
-    let st = bin().arg("check").arg(&p).arg("--json").current_dir(c.dir.path()).status().unwrap();
+    let st = bin()
+        .arg("check")
+        .arg(&p)
+        .arg("--json")
+        .current_dir(c.dir.path())
+        .status()
+        .unwrap();
     assert!(!st.success());
     assert!(!out_dir.exists());
     let entries: Vec<_> = std::fs::read_dir(c.dir.path()).unwrap().collect();

@@ -26,9 +26,17 @@ fn direct_and_head_wave_meet_at_the_crossover() {
     let head = xc / v2 + intercept_time(v1, v2, h);
     assert_abs_diff_eq!(direct, head, epsilon = 1e-12);
     // before the crossover the direct wave arrives first, beyond it the head wave
-    assert_abs_diff_eq!(two_layer_time(xc - 1.0, v1, v2, h), (xc - 1.0) / v1, epsilon = 1e-12);
+    assert_abs_diff_eq!(
+        two_layer_time(xc - 1.0, v1, v2, h),
+        (xc - 1.0) / v1,
+        epsilon = 1e-12
+    );
     let x = xc + 10.0;
-    assert_abs_diff_eq!(two_layer_time(x, v1, v2, h), x / v2 + intercept_time(v1, v2, h), epsilon = 1e-12);
+    assert_abs_diff_eq!(
+        two_layer_time(x, v1, v2, h),
+        x / v2 + intercept_time(v1, v2, h),
+        epsilon = 1e-12
+    );
 }
 
 /// The quality control reads the two layers back from two-layer picks: near-offset
