@@ -13,8 +13,10 @@
 pub mod analytic;
 pub mod cli;
 pub mod error;
+pub mod figures;
 pub mod model;
 pub mod output;
 pub mod qc;
+pub mod start;
 pub mod survey;
 pub mod workflow;
