@@ -15,6 +15,7 @@ pub mod cli;
 pub mod error;
 pub mod model;
 pub mod output;
+pub mod pinn;
 pub mod qc;
 pub mod survey;
 pub mod workflow;
