@@ -24,7 +24,7 @@ const EVAL_POINTS: usize = 2048;
 const CHUNK: usize = 8192;
 
 /// The trained networks with everything needed to evaluate them.
-#[derive(Clone, Debug)]
+#[derive(Clone)]
 pub struct TrainedModel {
     domain: Domain,
     start: StartModel,
@@ -34,6 +34,17 @@ pub struct TrainedModel {
     vel_shape: MlpShape,
     tau: Vec<f32>,
     vel: Vec<f32>,
+}
+
+impl std::fmt::Debug for TrainedModel {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("TrainedModel")
+            .field("domain", &self.domain)
+            .field("start", &self.start)
+            .field("tau", &self.tau_shape.sizes)
+            .field("vel", &self.vel_shape.sizes)
+            .finish_non_exhaustive()
+    }
 }
 
 fn tensor2(v: Vec<f32>, rows: usize, cols: usize, device: &Device) -> Tensor<2> {
