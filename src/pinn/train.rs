@@ -609,6 +609,123 @@ fn evaluate(ctx: &Ctx, params: &[f32]) -> Eval {
     }
 }
 
+fn worker_count(s: &PinnSettings) -> usize {
+    if s.threads > 0 {
+        s.threads
+    } else {
+        rayon::current_num_threads()
+    }
+}
+
+/// Loss of one shard (its collocation pairs and picks) with the sums scaled by the
+/// whole batch sizes, so that the shard losses add up to the batch loss. Returns the
+/// gradient and `[total, data, eikonal, regulariser, mean squared error]`, or `None`
+/// when something is not finite.
+fn shard_loss(
+    ctx: &Ctx,
+    params: &[f32],
+    pairs: &[Pair],
+    batch: &[usize],
+    n_colloc: usize,
+    n_picks: usize,
+    ad: &Device,
+) -> Option<(Vec<f32>, [f64; 5])> {
+    let s = ctx.settings;
+    let model = &ctx.model;
+    let (tp, vp) = split(ctx, params);
+    let tau = NetTensors::new(&model.tau_shape, tp, s.activation, s.fast_tanh, ad, true);
+    let vel = NetTensors::new(
+        &model.vel_shape,
+        vp,
+        s.activation,
+        s.fast_tanh,
+        ad,
+        s.train_velocity,
+    );
+    let zero = || Tensor::<1>::zeros([1], ad);
+    let (eik, reg) = if pairs.is_empty() {
+        (zero(), zero())
+    } else {
+        let tb = model.tau_batch(pairs);
+        let vb = model.vel_batch(pairs.iter().map(|p| p.0));
+        let (res, [vx, vz]) = physics(&tau, &vel, &tb, &vb, &model.frame, ad);
+        let inv_n = 1.0 / n_colloc as f64;
+        let eik = res.clone().mul(res).sum().mul_scalar(inv_n);
+        let reg = if s.train_velocity && s.reg_weight > 0.0 {
+            let g2 = vx.clone().mul(vx).add(vz.clone().mul(vz));
+            match s.regulariser {
+                Regulariser::Smoothness => g2.sum().mul_scalar(inv_n),
+                Regulariser::TotalVariation => g2.add_scalar(1e-6).sqrt().sum().mul_scalar(inv_n),
+            }
+        } else {
+            zero()
+        };
+        (eik, reg)
+    };
+    let (data, mse) = if batch.is_empty() {
+        (zero(), zero())
+    } else {
+        let pick_pairs: Vec<Pair> = batch.iter().map(|&k| ctx.pick_pairs[k]).collect();
+        let pb = model.tau_batch(&pick_pairs);
+        let t_pred = time_value(&tau, &pb, ad);
+        let t_obs = tensor2(
+            batch.iter().map(|&k| ctx.picks[k].time_s as f32).collect(),
+            batch.len(),
+            1,
+            ad,
+        );
+        let inv_sig = tensor2(
+            batch
+                .iter()
+                .map(|&k| (1.0 / ctx.picks[k].sigma_s) as f32)
+                .collect(),
+            batch.len(),
+            1,
+            ad,
+        );
+        let err = t_pred.sub(t_obs);
+        let chi = err.clone().mul(inv_sig);
+        let inv_m = 1.0 / n_picks as f64;
+        let data = chi.clone().mul(chi).sum().mul_scalar(inv_m);
+        let mse = err.clone().mul(err).sum().mul_scalar(inv_m).detach();
+        (data, mse)
+    };
+    let total = data
+        .clone()
+        .mul_scalar(s.data_weight)
+        .add(eik.clone().mul_scalar(s.eikonal_weight))
+        .add(reg.clone().mul_scalar(s.reg_weight));
+    let parts = Tensor::cat(
+        vec![
+            total.clone().detach(),
+            data.detach(),
+            eik.detach(),
+            reg.detach(),
+            mse,
+        ],
+        0,
+    );
+    let v: Vec<f32> = parts.into_data().try_into_vec::<f32>().ok()?;
+    if v.iter().any(|x| !x.is_finite()) {
+        return None;
+    }
+    let vals = [
+        v[0] as f64,
+        v[1] as f64,
+        v[2] as f64,
+        v[3] as f64,
+        v[4] as f64,
+    ];
+    let grads = total.backward();
+    let mut g = tau.grads(&grads);
+    if s.train_velocity {
+        g.extend(vel.grads(&grads));
+    } else {
+        g.extend(std::iter::repeat_n(0.0, vp.len()));
+    }
+    Some((g, vals))
+}
+
 /// One Adam step on a fresh batch; `None` when the loss or a gradient is not finite
 /// (state untouched).
 fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
@@ -632,79 +749,34 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
         idx
     };
 
-    let (tp, vp) = split(ctx, &state.params);
-    let tau = NetTensors::new(&model.tau_shape, tp, s.activation, s.fast_tanh, ad, true);
-    let vel = NetTensors::new(
-        &model.vel_shape,
-        vp,
-        s.activation,
-        s.fast_tanh,
-        ad,
-        s.train_velocity,
-    );
-
-    let tb = model.tau_batch(&pairs);
-    let vb = model.vel_batch(pairs.iter().map(|p| p.0));
-    let (res, [vx, vz]) = physics(&tau, &vel, &tb, &vb, &model.frame, ad);
-    let eik = res.clone().mul(res).mean();
-    let reg = if s.train_velocity && s.reg_weight > 0.0 {
-        let g2 = vx.clone().mul(vx).add(vz.clone().mul(vz));
-        match s.regulariser {
-            Regulariser::Smoothness => g2.mean(),
-            Regulariser::TotalVariation => g2.add_scalar(1e-6).sqrt().mean(),
-        }
-    } else {
-        Tensor::<1>::zeros([1], ad)
+    // The batch is cut into one shard per worker thread; each shard builds its own
+    // graph from its own copy of the weights (burn keeps independent graphs under
+    // separate locks), and the shard gradients are summed in shard order, so the result
+    // depends on the thread count only (shards hold at least 256 points).
+    let shards = worker_count(s).min(pairs.len() / 256).max(1);
+    let (nc, np) = (pairs.len(), batch.len());
+    let cut = |len: usize, k: usize| (len * k / shards, len * (k + 1) / shards);
+    let job = |k: usize| {
+        let (a, b) = cut(nc, k);
+        let (c, d) = cut(np, k);
+        shard_loss(ctx, &state.params, &pairs[a..b], &batch[c..d], nc, np, ad)
     };
-
-    let pick_pairs: Vec<Pair> = batch.iter().map(|&k| ctx.pick_pairs[k]).collect();
-    let pb = model.tau_batch(&pick_pairs);
-    let t_pred = time_value(&tau, &pb, ad);
-    let t_obs = tensor2(
-        batch.iter().map(|&k| ctx.picks[k].time_s as f32).collect(),
-        batch.len(),
-        1,
-        ad,
-    );
-    let inv_sig = tensor2(
-        batch
-            .iter()
-            .map(|&k| (1.0 / ctx.picks[k].sigma_s) as f32)
-            .collect(),
-        batch.len(),
-        1,
-        ad,
-    );
-    let err = t_pred.sub(t_obs);
-    let chi = err.clone().mul(inv_sig);
-    let data = chi.clone().mul(chi).mean();
-    let mse = err.clone().mul(err).mean().detach();
-
-    let total = data
-        .clone()
-        .mul_scalar(s.data_weight)
-        .add(eik.clone().mul_scalar(s.eikonal_weight))
-        .add(reg.clone().mul_scalar(s.reg_weight));
-    let parts = Tensor::cat(
-        vec![
-            total.clone().detach(),
-            data.detach(),
-            eik.detach(),
-            reg.detach(),
-            mse,
-        ],
-        0,
-    );
-    let vals: Vec<f32> = parts.into_data().try_into_vec::<f32>().ok()?;
-    if vals.iter().any(|v| !v.is_finite()) {
-        return None;
-    }
-    let grads = total.backward();
-    let mut g = tau.grads(&grads);
-    if s.train_velocity {
-        g.extend(vel.grads(&grads));
+    let results: Vec<Option<(Vec<f32>, [f64; 5])>> = if shards == 1 {
+        vec![job(0)]
     } else {
-        g.extend(std::iter::repeat_n(0.0, vp.len()));
+        use rayon::prelude::*;
+        (0..shards).into_par_iter().map(job).collect()
+    };
+    let mut g = vec![0.0f32; state.params.len()];
+    let mut vals = [0.0f64; 5];
+    for r in results {
+        let (gk, vk) = r?;
+        for (a, b) in g.iter_mut().zip(&gk) {
+            *a += b;
+        }
+        for (a, b) in vals.iter_mut().zip(&vk) {
+            *a += b;
+        }
     }
     if g.iter().any(|v| !v.is_finite()) {
         return None;
@@ -734,11 +806,11 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
     state.step += 1;
     Some(StepLog {
         step: state.step,
-        loss: vals[0] as f64,
-        data: vals[1] as f64,
-        eikonal: vals[2] as f64,
-        regulariser: vals[3] as f64,
-        data_rms_ms: (vals[4] as f64).sqrt() * 1e3,
+        loss: vals[0],
+        data: vals[1],
+        eikonal: vals[2],
+        regulariser: vals[3],
+        data_rms_ms: vals[4].sqrt() * 1e3,
         learning_rate: lr,
         chi2: None,
         eikonal_rms: None,
