@@ -10,7 +10,7 @@ struct Print(usize);
 impl Observer for Print {
     fn on_step(&mut self, s: &StepLog) {
         if let Some(c) = s.chi2 {
-            if s.step % self.0 == 0 {
+            if s.step.is_multiple_of(self.0) {
                 println!(
                     "step {:5} loss {:.4e} data {:.3e} eik {:.3e} reg {:.3e} rms {:.3} ms | chi2 {:.3} eik_rms {:.4} lr {:.2e}",
                     s.step, s.loss, s.data, s.eikonal, s.regulariser, s.data_rms_ms, c, s.eikonal_rms.unwrap_or(f64::NAN), s.learning_rate

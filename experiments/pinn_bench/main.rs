@@ -48,7 +48,20 @@ fn survey() -> (Vec<Pick>, Domain, StartModel) {
     )
 }
 
-fn time_steps(n: usize, threads: usize, fast_tanh: bool, steps: usize) -> f64 {
+/// CPU time of this process (all threads), s, from /proc/self/stat (Linux; 0 elsewhere).
+fn cpu_seconds() -> f64 {
+    let Ok(stat) = std::fs::read_to_string("/proc/self/stat") else {
+        return 0.0;
+    };
+    // fields after the ")" closing the command name: state is field 3, utime 14, stime 15
+    let rest = stat.rsplit(')').next().unwrap_or("");
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    let ticks: f64 = f.get(11).and_then(|v| v.parse().ok()).unwrap_or(0.0)
+        + f.get(12).and_then(|v| v.parse().ok()).unwrap_or(0.0);
+    ticks / 100.0 // USER_HZ is 100 on Linux
+}
+
+fn time_steps(n: usize, threads: usize, fast_tanh: bool, steps: usize) -> (f64, f64) {
     let (picks, domain, start) = survey();
     let s = PinnSettings {
         collocation: n,
@@ -59,20 +72,27 @@ fn time_steps(n: usize, threads: usize, fast_tanh: bool, steps: usize) -> f64 {
         checkpoint_every: 0,
         patience: 0,
         chi2_target: 0.0,
+        shard_points: std::env::var("SHARD")
+            .ok()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(1024),
         ..Default::default()
     };
+    let c = cpu_seconds();
     let t = Instant::now();
     let out = train(&picks, &domain, &start, &s, None, &mut Silent).expect("bench run");
     assert_eq!(out.steps, steps);
-    t.elapsed().as_secs_f64()
+    (t.elapsed().as_secs_f64(), cpu_seconds() - c)
 }
 
-fn ms_per_step(n: usize, threads: usize, fast_tanh: bool) -> f64 {
-    let (s1, s2) = if n >= 16384 { (3, 13) } else { (5, 35) };
+/// (wall ms/step, CPU ms/step)
+fn ms_per_step(n: usize, threads: usize, fast_tanh: bool) -> (f64, f64) {
+    let (s1, s2) = if n >= 16384 { (3, 13) } else { (5, 45) };
     let _ = time_steps(n, threads, fast_tanh, 2); // warm-up
-    let t1 = time_steps(n, threads, fast_tanh, s1);
-    let t2 = time_steps(n, threads, fast_tanh, s2);
-    1e3 * (t2 - t1) / (s2 - s1) as f64
+    let (w1, c1) = time_steps(n, threads, fast_tanh, s1);
+    let (w2, c2) = time_steps(n, threads, fast_tanh, s2);
+    let k = 1e3 / (s2 - s1) as f64;
+    (k * (w2 - w1), k * (c2 - c1))
 }
 
 fn main() {
@@ -84,7 +104,8 @@ fn main() {
         "/experiments/pinn_bench/torch_step.py"
     );
     let python = std::env::var("PYTHON").unwrap_or_else(|_| "python3".into());
-    println!("| N | slowfield 1 thr, burn tanh | slowfield 1 thr | slowfield 2 thr | torch autograd 1 / 2 thr | torch tangent 1 / 2 thr | best slowfield / best torch |");
+    println!("wall-clock ms/step (CPU ms/step of the whole process in brackets)");
+    println!("| N | slowfield 1 thr, burn tanh | slowfield 1 thr | slowfield 2 thr | torch autograd 1 / 2 thr | torch tangent 1 / 2 thr | best slowfield / best torch (wall) |");
     println!("|---|---|---|---|---|---|---|");
     for &n in &ns {
         let plain = ms_per_step(n, 1, false);
@@ -103,7 +124,7 @@ fn main() {
                         .split_whitespace()
                         .filter_map(|w| w.parse().ok())
                         .collect();
-                    if v.len() == 4 {
+                    if v.len() == 8 {
                         torch = Some(v);
                     }
                 }
@@ -114,16 +135,25 @@ fn main() {
                 Err(e) => eprintln!("cannot run {python}: {e}"),
             }
         }
-        let best = one.min(two);
+        let best = one.0.min(two.0);
+        let f = |x: (f64, f64)| format!("{:.1} ({:.1})", x.0, x.1);
         match torch {
             Some(t) => {
-                let tb = t.iter().cloned().fold(f64::INFINITY, f64::min);
+                let tb = [t[0], t[2], t[4], t[6]]
+                    .iter()
+                    .cloned()
+                    .fold(f64::INFINITY, f64::min);
                 println!(
-                    "| {n} | {plain:.1} | {one:.1} | {two:.1} | {:.1} / {:.1} | {:.1} / {:.1} | {:.2} |",
-                    t[0], t[1], t[2], t[3], best / tb
+                    "| {n} | {} | {} | {} | {:.1} ({:.1}) / {:.1} ({:.1}) | {:.1} ({:.1}) / {:.1} ({:.1}) | {:.2} |",
+                    f(plain), f(one), f(two), t[0], t[1], t[2], t[3], t[4], t[5], t[6], t[7], best / tb
                 );
             }
-            None => println!("| {n} | {plain:.1} | {one:.1} | {two:.1} | – | – | – |"),
+            None => println!(
+                "| {n} | {} | {} | {} | – | – | – |",
+                f(plain),
+                f(one),
+                f(two)
+            ),
         }
     }
 }

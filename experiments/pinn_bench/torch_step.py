@@ -1,6 +1,7 @@
 """One PINN training step in PyTorch CPU, the same networks, loss and batch as
-slowfield's (experiments/pinn_bench/main.rs). Prints four numbers, ms/step:
-autograd(create_graph) with 1 and 2 threads, tangent form with 1 and 2 threads.
+slowfield's (experiments/pinn_bench/main.rs). Prints eight numbers, wall and CPU ms/step
+(process CPU time, all threads) for: autograd(create_graph) with 1 and 2 threads,
+tangent form with 1 and 2 threads.
 
 Usage: python3 torch_step.py N
 """
@@ -141,13 +142,13 @@ def bench(step, n, threads):
     reps = 10 if n >= 16384 else 30
     for _ in range(3):
         step(tau, vel, opt, n, pk)
-    t = time.perf_counter()
+    t, c = time.perf_counter(), time.process_time()
     for _ in range(reps):
         step(tau, vel, opt, n, pk)
-    return 1e3 * (time.perf_counter() - t) / reps
+    return 1e3 * (time.perf_counter() - t) / reps, 1e3 * (time.process_time() - c) / reps
 
 
 if __name__ == "__main__":
     n = int(sys.argv[1])
     out = [bench(step_autograd, n, 1), bench(step_autograd, n, 2), bench(step_tangent, n, 1), bench(step_tangent, n, 2)]
-    print(" ".join(f"{v:.3f}" for v in out))
+    print(" ".join(f"{w:.3f} {c:.3f}" for w, c in out))

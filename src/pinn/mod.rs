@@ -139,6 +139,9 @@ pub struct PinnSettings {
     pub ray_sag: f64,
     /// Picks per step (all of them when there are fewer).
     pub pick_batch: usize,
+    /// Collocation points per shard: each step's batch is split into shards that run
+    /// in parallel on the worker threads (results do not depend on the thread count).
+    pub shard_points: usize,
     /// Weight of the data misfit `mean(((T − t)/σ)²)`.
     pub data_weight: f64,
     /// Weight of the eikonal residual `mean((v·|∇T| − 1)²)`.
@@ -164,7 +167,7 @@ pub struct PinnSettings {
     pub max_retries: u32,
     /// Seed of every random choice (weights, collocation, pick batches).
     pub seed: u64,
-    /// Worker threads (0: rayon's default). Results are bit-identical for a given count.
+    /// Worker threads (0: rayon's default). Results do not depend on it.
     pub threads: usize,
 }
 
@@ -191,6 +194,7 @@ impl Default for PinnSettings {
             ray_fraction: 0.5,
             ray_sag: 0.3,
             pick_batch: 1024,
+            shard_points: 1024,
             data_weight: 1.0,
             eikonal_weight: 1000.0,
             regulariser: Regulariser::Smoothness,

@@ -14,6 +14,7 @@
 //! tracked tensors, so the optimizer state and checkpoints are plain vectors.
 
 use burn::prelude::*;
+use burn::tensor::activation::sigmoid;
 use burn::tensor::Gradients;
 use rand::Rng;
 use serde::{Deserialize, Serialize};
@@ -152,33 +153,34 @@ impl NetTensors {
         out
     }
 
-    /// Activation value and slope. The fast tanh is evaluated off the tape as
-    /// `1 − 2/(exp(2a) + 1)` and re-attached with its exact slope through
-    /// `y = a·s + (y₀ − a·s)` (constants detached), so the value is `y₀` and `∂y/∂a = s`.
+    /// Activation value and slope. The fast tanh is evaluated off the tape,
+    /// `y₀ = 2σ(2a) − 1` (σ the fused logistic kernel; the same as
+    /// `1 − 2/(exp(2a) + 1)`), with `s₀ = 1 − y₀²` and `k₀ = −2y₀s₀`, and re-attached
+    /// to the tape through the zero-valued tracked offset `d = a − a₀`:
+    /// `y = y₀ + s₀·d`, `s = s₀ + k₀·d`. Values are exact (`d = 0`), and so are the
+    /// first derivatives `∂y/∂a = 1 − y²`, `∂s/∂a = −2ys`, which are all the reverse
+    /// pass needs.
     fn activate(&self, a: Tensor<2>) -> (Tensor<2>, Tensor<2>) {
         match self.act {
-            Activation::Tanh => {
-                let y = if self.fast_tanh {
-                    let tracked = a.is_tracked_float();
-                    let ac = a.clone().detach();
-                    let y0 = ac
-                        .clone()
-                        .mul_scalar(2.0)
-                        .exp()
-                        .add_scalar(1.0)
-                        .recip()
-                        .mul_scalar(-2.0)
-                        .add_scalar(1.0);
-                    if tracked {
-                        let s0 = y0.clone().mul(y0.clone()).neg().add_scalar(1.0);
-                        let c = y0.sub(ac.mul(s0.clone()));
-                        a.mul(s0).add(c)
-                    } else {
-                        y0
-                    }
+            Activation::Tanh if self.fast_tanh => {
+                let tracked = a.is_tracked_float();
+                let ac = a.clone().detach();
+                let y0 = sigmoid(ac.clone().mul_scalar(2.0))
+                    .mul_scalar(2.0)
+                    .sub_scalar(1.0);
+                let s0 = y0.clone().mul(y0.clone()).neg().add_scalar(1.0);
+                if tracked {
+                    let k0 = y0.clone().mul(s0.clone()).mul_scalar(-2.0);
+                    let d = a.sub(ac);
+                    let y = d.clone().mul(s0.clone()).add(y0);
+                    let s = d.mul(k0).add(s0);
+                    (y, s)
                 } else {
-                    a.tanh()
-                };
+                    (y0, s0)
+                }
+            }
+            Activation::Tanh => {
+                let y = a.tanh();
                 let s = y.clone().mul(y.clone()).neg().add_scalar(1.0);
                 (y, s)
             }

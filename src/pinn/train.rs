@@ -609,14 +609,6 @@ fn evaluate(ctx: &Ctx, params: &[f32]) -> Eval {
     }
 }
 
-fn worker_count(s: &PinnSettings) -> usize {
-    if s.threads > 0 {
-        s.threads
-    } else {
-        rayon::current_num_threads()
-    }
-}
-
 /// Loss of one shard (its collocation pairs and picks) with the sums scaled by the
 /// whole batch sizes, so that the shard losses add up to the batch loss. Returns the
 /// gradient and `[total, data, eikonal, regulariser, mean squared error]`, or `None`
@@ -749,11 +741,13 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
         idx
     };
 
-    // The batch is cut into one shard per worker thread; each shard builds its own
-    // graph from its own copy of the weights (burn keeps independent graphs under
-    // separate locks), and the shard gradients are summed in shard order, so the result
-    // depends on the thread count only (shards hold at least 256 points).
-    let shards = worker_count(s).min(pairs.len() / 256).max(1);
+    // The batch is cut into shards of at most `shard_points` collocation points (the
+    // picks spread evenly over them). Each shard builds its own graph from its own copy
+    // of the weights (burn keeps independent graphs under separate locks), the shards
+    // run on the worker threads, and their gradients are summed in shard order: the
+    // result does not depend on the thread count. Shards of about a thousand rows also
+    // keep every activation matrix in cache.
+    let shards = pairs.len().div_ceil(s.shard_points).max(1);
     let (nc, np) = (pairs.len(), batch.len());
     let cut = |len: usize, k: usize| (len * k / shards, len * (k + 1) / shards);
     let job = |k: usize| {

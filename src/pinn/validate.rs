@@ -92,6 +92,13 @@ pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
             "use e.g. 2048",
         ));
     }
+    if s.shard_points == 0 {
+        return Err(bad(
+            "shard_points",
+            "zero points per shard".into(),
+            "use e.g. 1024",
+        ));
+    }
     if s.pick_batch == 0 {
         return Err(bad(
             "pick_batch",
@@ -152,7 +159,7 @@ pub(crate) fn domain(d: &Domain) -> Result<(), PinnError> {
         return Err(PinnError::Domain("the ground surface has no points".into()));
     }
     for (k, w) in d.surface.windows(2).enumerate() {
-        if !(w[1][0] > w[0][0]) {
+        if w[1][0].partial_cmp(&w[0][0]) != Some(std::cmp::Ordering::Greater) {
             return Err(PinnError::Domain(format!(
                 "surface point {} (x = {}) is not right of point {} (x = {})",
                 k + 1,
@@ -198,7 +205,10 @@ pub(crate) fn start(m: &StartModel, s: &PinnSettings) -> Result<(), PinnError> {
                     velocity.len()
                 )));
             }
-            if depth_m.windows(2).any(|w| !(w[1] > w[0])) {
+            if depth_m
+                .windows(2)
+                .any(|w| w[1].partial_cmp(&w[0]) != Some(std::cmp::Ordering::Greater))
+            {
                 return Err(PinnError::StartModel(
                     "depths must increase strictly".into(),
                 ));
