@@ -16,6 +16,7 @@ pub mod error;
 pub mod figures;
 pub mod model;
 pub mod output;
+pub mod pinn;
 pub mod qc;
 pub mod start;
 pub mod survey;

@@ -1,0 +1,353 @@
+//! PINN travel-time tomography: picks in, a continuous velocity model out.
+//!
+//! Physics-informed networks (Raissi, Perdikaris & Karniadakis 2019, J. Comput. Phys.
+//! 378) applied to the eikonal equation and to travel-time tomography (Smith,
+//! Azizzadenesheli & Ross 2020, IEEE TGRS; Waheed et al. 2021, IEEE TGRS).
+//!
+//! Two networks:
+//! * `τ(a, b)`, the travel-time factor between a field point `a` and a source `b`, one
+//!   network for every source. The time is `T = T0·τ` with `T0` the straight-ray time
+//!   through the start model's end-point slownesses ([`geom`]), which removes the point
+//!   source singularity (factored eikonal, Fomel, Luo & Zhao 2009, J. Comput. Phys. 228).
+//!   τ sees the pair only through features symmetric in `a ↔ b`, so `T(a, b) = T(b, a)`
+//!   holds exactly and every receiver serves as a virtual source for collocation.
+//! * `v(x, z)` (or `v(depth)` with `dim = 1`), bounded in `(v_min, v_max)` by
+//!   `v = v_min + (v_max − v_min)·σ(ℓ_start + n)`, `σ` the logistic function.
+//!
+//! Start (design choice): both output layers start at zero, so at step 0 the velocity is
+//! the 1-D start model exactly (`ℓ_start` is its logit, not learnt) and `τ = 1 + n = 1`,
+//! i.e. `T = T0`. No pre-fit is needed.
+//!
+//! Loss: `w_d·mean(((T − t)/σ)²) + w_e·mean((v·|∇T| − 1)²) + w_r·R(∇v)`, the eikonal
+//! residual at collocation points redrawn every step below the ground (half uniform,
+//! half around the source–receiver paths), `R` the smoothness `|L∇v/Δv|²` or total
+//! variation `|L∇v/Δv|` (Rudin, Osher & Fatemi 1992) with `L` half the domain depth and
+//! `Δv = v_max − v_min`. `∇T` and `∇v` are propagated forward through the layers
+//! ([`net`]). Adam (Kingma & Ba 2015, ICLR) with an exponentially decaying step.
+
+mod checkpoint;
+pub mod geom;
+pub mod net;
+mod sampler;
+mod train;
+mod validate;
+
+use serde::{Deserialize, Serialize};
+
+pub use checkpoint::Checkpoint;
+pub use net::{Activation, MlpShape};
+pub use train::{train, TrainedModel};
+
+/// One first-arrival pick. Positions `(x, z)` in m (z elevation), times in s.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Pick {
+    /// Source position `(x, z)`, m.
+    pub source: [f64; 2],
+    /// Receiver position `(x, z)`, m.
+    pub receiver: [f64; 2],
+    /// Picked first-arrival time, s.
+    pub time_s: f64,
+    /// Standard uncertainty of the pick, s (> 0).
+    pub sigma_s: f64,
+}
+
+/// The region the model covers: `x_min ≤ x ≤ x_max`, `z_bottom ≤ z ≤ ground(x)`.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Domain {
+    /// Left end of the model, m.
+    pub x_min: f64,
+    /// Right end of the model, m.
+    pub x_max: f64,
+    /// Bottom elevation, m.
+    pub z_bottom: f64,
+    /// Piecewise-linear ground `(x, z)`, sorted by x (at least one point; constant
+    /// beyond the ends).
+    pub surface: Vec<[f64; 2]>,
+}
+
+/// 1-D start model, velocity as a function of depth below the ground.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub enum StartModel {
+    /// `v = v_top + gradient·depth`.
+    Gradient {
+        /// velocity at the ground, m/s
+        v_top: f64,
+        /// `dv/d(depth)`, 1/s
+        gradient: f64,
+    },
+    /// Linear interpolation between samples, constant beyond them.
+    Profile {
+        /// depths below the ground, m, increasing
+        depth_m: Vec<f64>,
+        /// velocity at each depth, m/s
+        velocity: Vec<f64>,
+    },
+}
+
+/// Model regulariser.
+#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
+#[serde(rename_all = "snake_case")]
+pub enum Regulariser {
+    /// Smoothness, mean of `|L∇v/Δv|²`.
+    Smoothness,
+    /// Total variation, mean of `sqrt(|L∇v/Δv|² + ε²)` (ε = 1e-3), for blocky ground.
+    TotalVariation,
+}
+
+/// Every knob of the engine, each with a default that suits a typical spread
+/// (70–150 m line, 20–30 m deep, 50–70 receivers, 12–20 shots).
+#[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
+#[serde(default)]
+pub struct PinnSettings {
+    /// Lowest velocity the model may take, m/s.
+    pub v_min: f64,
+    /// Highest velocity the model may take, m/s.
+    pub v_max: f64,
+    /// 2: velocity `v(x, z)`; 1: velocity `v(depth)` only.
+    pub dim: u8,
+    /// Hidden width of the travel-time network.
+    pub tau_width: usize,
+    /// Hidden layers of the travel-time network.
+    pub tau_depth: usize,
+    /// Hidden width of the velocity network.
+    pub vel_width: usize,
+    /// Hidden layers of the velocity network.
+    pub vel_depth: usize,
+    /// Hidden activation of both networks.
+    pub activation: Activation,
+    /// Evaluate tanh as `1 − 2/(exp(2a)+1)` off the tape (faster, same slope).
+    pub fast_tanh: bool,
+    /// Training steps (the run may stop earlier).
+    pub steps: usize,
+    /// Initial Adam step size.
+    pub learning_rate: f64,
+    /// Steps over which the step size halves.
+    pub lr_half_life: f64,
+    /// Smallest step size.
+    pub lr_min: f64,
+    /// Adam β1.
+    pub beta1: f64,
+    /// Adam β2.
+    pub beta2: f64,
+    /// Adam ε.
+    pub adam_eps: f64,
+    /// Collocation points per step.
+    pub collocation: usize,
+    /// Share of collocation points drawn around source–receiver paths (rest uniform).
+    pub ray_fraction: f64,
+    /// How far (× offset) below the straight path the path-guided points may reach.
+    pub ray_sag: f64,
+    /// Picks per step (all of them when there are fewer).
+    pub pick_batch: usize,
+    /// Collocation points per shard: each step's batch is split into shards that run
+    /// in parallel on the worker threads (results do not depend on the thread count).
+    pub shard_points: usize,
+    /// Weight of the data misfit `mean(((T − t)/σ)²)`.
+    pub data_weight: f64,
+    /// Weight of the eikonal residual `mean((v·|∇T| − 1)²)`.
+    pub eikonal_weight: f64,
+    /// Regulariser kind.
+    pub regulariser: Regulariser,
+    /// Weight of the regulariser.
+    pub reg_weight: f64,
+    /// Train the velocity network (false: keep the start model, solve times only).
+    pub train_velocity: bool,
+    /// Stop when the data chi² (mean of `((T − t)/σ)²` over all picks) reaches this
+    /// and the eikonal RMS is below `eikonal_target`.
+    pub chi2_target: f64,
+    /// Eikonal RMS needed for the chi² stop.
+    pub eikonal_target: f64,
+    /// Steps between full evaluations (chi², eikonal RMS, early stop).
+    pub eval_every: usize,
+    /// Evaluations without a 1 % improvement of the objective before stopping (0: never).
+    pub patience: usize,
+    /// Steps between checkpoints (0: only at the end).
+    pub checkpoint_every: usize,
+    /// Roll-backs after a non-finite loss before giving up.
+    pub max_retries: u32,
+    /// Seed of every random choice (weights, collocation, pick batches).
+    pub seed: u64,
+    /// Worker threads (0: rayon's default). Results do not depend on it.
+    pub threads: usize,
+}
+
+impl Default for PinnSettings {
+    fn default() -> Self {
+        PinnSettings {
+            v_min: 100.0,
+            v_max: 5000.0,
+            dim: 2,
+            tau_width: 64,
+            tau_depth: 4,
+            vel_width: 32,
+            vel_depth: 3,
+            activation: Activation::Tanh,
+            fast_tanh: true,
+            steps: 3000,
+            learning_rate: 2e-3,
+            lr_half_life: 1000.0,
+            lr_min: 1e-5,
+            beta1: 0.9,
+            beta2: 0.999,
+            adam_eps: 1e-8,
+            collocation: 2048,
+            ray_fraction: 0.5,
+            ray_sag: 0.3,
+            pick_batch: 1024,
+            shard_points: 1024,
+            data_weight: 1.0,
+            eikonal_weight: 1000.0,
+            regulariser: Regulariser::Smoothness,
+            reg_weight: 1e-3,
+            train_velocity: true,
+            chi2_target: 1.0,
+            eikonal_target: 0.01,
+            eval_every: 50,
+            patience: 10,
+            checkpoint_every: 500,
+            max_retries: 3,
+            seed: 1,
+            threads: 0,
+        }
+    }
+}
+
+/// One training step as reported to the [`Observer`].
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct StepLog {
+    /// Steps done (1 after the first).
+    pub step: usize,
+    /// Total weighted loss of the step's batch.
+    pub loss: f64,
+    /// Data term `mean(((T − t)/σ)²)` of the batch.
+    pub data: f64,
+    /// Eikonal term `mean((v·|∇T| − 1)²)` of the batch.
+    pub eikonal: f64,
+    /// Regulariser term of the batch.
+    pub regulariser: f64,
+    /// RMS of `T − t` over the batch, ms.
+    pub data_rms_ms: f64,
+    /// Step size used.
+    pub learning_rate: f64,
+    /// Chi² over all picks, at evaluation steps.
+    pub chi2: Option<f64>,
+    /// Eikonal residual RMS on the evaluation points, at evaluation steps.
+    pub eikonal_rms: Option<f64>,
+}
+
+/// Receives progress. Both methods are called on the training thread.
+pub trait Observer: Send {
+    /// After every step.
+    fn on_step(&mut self, step: &StepLog);
+    /// After every checkpoint (every `checkpoint_every` steps and at the end).
+    fn on_checkpoint(&mut self, _checkpoint: &Checkpoint) {}
+}
+
+/// An observer that ignores everything.
+pub struct Silent;
+
+impl Observer for Silent {
+    fn on_step(&mut self, _: &StepLog) {}
+}
+
+/// Why training ended.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub enum StopReason {
+    /// All `steps` were done.
+    MaxSteps,
+    /// chi² reached `chi2_target` with the eikonal RMS under `eikonal_target`.
+    TargetReached,
+    /// The objective stopped improving for `patience` evaluations.
+    NoImprovement,
+}
+
+/// The result of [`train`].
+#[derive(Clone, Debug)]
+pub struct PinnOutcome {
+    /// The trained networks; sample velocity and times from it.
+    pub model: TrainedModel,
+    /// The network's own times at the picks, s (same order as the picks).
+    pub predicted_s: Vec<f64>,
+    /// Chi² of those times, mean of `((T − t)/σ)²`.
+    pub chi2: f64,
+    /// RMS of `T − t`, ms.
+    pub data_rms_ms: f64,
+    /// RMS of `v·|∇T| − 1` on evaluation points.
+    pub eikonal_rms: f64,
+    /// Every step's log.
+    pub history: Vec<StepLog>,
+    /// Steps done.
+    pub steps: usize,
+    /// Why it stopped.
+    pub stop: StopReason,
+}
+
+/// Everything that can go wrong, each message saying what to do.
+#[derive(Debug, thiserror::Error)]
+pub enum PinnError {
+    /// A setting is out of range.
+    #[error("invalid PINN setting '{name}': {problem}; {hint}")]
+    Setting {
+        /// setting name
+        name: &'static str,
+        /// what is wrong
+        problem: String,
+        /// what to do
+        hint: &'static str,
+    },
+    /// The domain is unusable.
+    #[error("invalid model domain: {0}; give x_min < x_max, a ground surface sorted by x, and z_bottom below the whole surface")]
+    Domain(String),
+    /// The start model is unusable.
+    #[error("invalid start model: {0}")]
+    StartModel(String),
+    /// No picks.
+    #[error("there are no picks to invert; give at least one first-arrival pick")]
+    NoPicks,
+    /// A pick is malformed.
+    #[error(
+        "pick {index} (source x={sx:.2} z={sz:.2} m, receiver x={rx:.2} z={rz:.2} m): {problem}"
+    )]
+    Pick {
+        /// position in the pick list
+        index: usize,
+        /// source x
+        sx: f64,
+        /// source z
+        sz: f64,
+        /// receiver x
+        rx: f64,
+        /// receiver z
+        rz: f64,
+        /// what is wrong and what to do
+        problem: String,
+    },
+    /// Training produced non-finite numbers again and again.
+    #[error("training diverged at step {step} (non-finite loss after {retries} roll-backs with smaller steps); lower learning_rate or the loss weights; the best model so far is kept")]
+    Diverged {
+        /// step of the last failure
+        step: usize,
+        /// roll-backs tried
+        retries: u32,
+        /// the best model so far
+        best: Box<PinnOutcome>,
+    },
+    /// The checkpoint belongs to other picks or settings.
+    #[error("the checkpoint does not match these picks, domain, start model or settings ({0}); resume with the same inputs or start afresh")]
+    CheckpointMismatch(String),
+    /// The checkpoint bytes are damaged.
+    #[error(
+        "the checkpoint cannot be read: {0}; it is damaged or from another version, start afresh"
+    )]
+    CheckpointCorrupt(String),
+    /// The thread pool could not be built.
+    #[error(
+        "cannot start {threads} worker threads: {message}; set threads = 0 to use the default pool"
+    )]
+    Threads {
+        /// requested count
+        threads: usize,
+        /// system message
+        message: String,
+    },
+}

@@ -1,0 +1,279 @@
+//! Forward-propagated input derivatives of the PINN networks against central finite
+//! differences (the definition of the derivative; central differences have error
+//! O(h²), e.g. Press et al., *Numerical Recipes*, 3rd ed., §5.7).
+
+use burn::prelude::*;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use slowfield::pinn::net::{Activation, MlpShape, NetTensors};
+use slowfield::pinn::{train, Domain, Pick, PinnSettings, Silent, StartModel};
+
+/// Independent f64 evaluation of the same network layout (weights `[d_in, d_out]`
+/// row-major, then biases), written here from the definition of a perceptron.
+fn reference(shape: &MlpShape, p: &[f32], act: Activation, x: &[f64]) -> f64 {
+    let mut h: Vec<f64> = x.to_vec();
+    let layout = shape.layout();
+    for (l, &(wo, bo, i, o)) in layout.iter().enumerate() {
+        let mut a = vec![0.0; o];
+        for (c, ac) in a.iter_mut().enumerate() {
+            let mut s = p[bo + c] as f64;
+            for (r, hr) in h.iter().enumerate().take(i) {
+                s += hr * p[wo + r * o + c] as f64;
+            }
+            *ac = s;
+        }
+        h = if l + 1 < layout.len() {
+            a.iter()
+                .map(|&v| match act {
+                    Activation::Tanh => v.tanh(),
+                    Activation::Sine => v.sin(),
+                })
+                .collect()
+        } else {
+            a
+        };
+    }
+    h[0]
+}
+
+fn random_params(shape: &MlpShape, rng: &mut ChaCha8Rng) -> Vec<f32> {
+    // no zero output layer: every path must carry a derivative
+    let mut p = shape.init(rng, false);
+    for v in p.iter_mut() {
+        *v += rng.gen_range(-0.1..0.1f32);
+    }
+    p
+}
+
+fn rel_err(a: &[f64], b: &[f64]) -> f64 {
+    let num: f64 = a
+        .iter()
+        .zip(b)
+        .map(|(x, y)| (x - y).powi(2))
+        .sum::<f64>()
+        .sqrt();
+    let den: f64 = b.iter().map(|y| y * y).sum::<f64>().sqrt();
+    num / den
+}
+
+fn check_tangents(act: Activation, fast: bool) {
+    let mut rng = ChaCha8Rng::seed_from_u64(7);
+    let shape = MlpShape::new(3, 24, 3, 1);
+    let p = random_params(&shape, &mut rng);
+    let n = 64;
+    let x: Vec<f64> = (0..n * 3).map(|_| rng.gen_range(-1.0..1.0)).collect();
+    let dir: Vec<f64> = (0..n * 3).map(|_| rng.gen_range(-1.0..1.0)).collect();
+    let dev = Device::flex();
+    let net = NetTensors::new(&shape, &p, act, fast, &dev, false);
+    let xt = Tensor::<2>::from_data(
+        TensorData::new(x.iter().map(|&v| v as f32).collect::<Vec<_>>(), [n, 3]),
+        &dev,
+    );
+    let dt = Tensor::<2>::from_data(
+        TensorData::new(dir.iter().map(|&v| v as f32).collect::<Vec<_>>(), [n, 3]),
+        &dev,
+    );
+    let (y, d) = net.forward_tangent(xt, vec![dt]);
+    let y: Vec<f64> = y
+        .into_data()
+        .try_into_vec::<f32>()
+        .unwrap()
+        .into_iter()
+        .map(f64::from)
+        .collect();
+    let d: Vec<f64> = d[0]
+        .clone()
+        .into_data()
+        .try_into_vec::<f32>()
+        .unwrap()
+        .into_iter()
+        .map(f64::from)
+        .collect();
+    let h = 1e-5;
+    let (mut y_ref, mut d_fd) = (Vec::new(), Vec::new());
+    for r in 0..n {
+        let xr = &x[3 * r..3 * r + 3];
+        let dr = &dir[3 * r..3 * r + 3];
+        let plus: Vec<f64> = xr.iter().zip(dr).map(|(a, b)| a + h * b).collect();
+        let minus: Vec<f64> = xr.iter().zip(dr).map(|(a, b)| a - h * b).collect();
+        y_ref.push(reference(&shape, &p, act, xr));
+        d_fd.push(
+            (reference(&shape, &p, act, &plus) - reference(&shape, &p, act, &minus)) / (2.0 * h),
+        );
+    }
+    let ev = rel_err(&y, &y_ref);
+    let ed = rel_err(&d, &d_fd);
+    println!("{act:?} fast={fast}: value rel err {ev:.2e}, tangent rel err {ed:.2e}");
+    assert!(ev <= 1e-3, "values differ from the f64 reference: {ev}");
+    assert!(ed <= 1e-3, "tangents differ from central differences: {ed}");
+}
+
+#[test]
+fn tangents_match_central_differences_tanh() {
+    check_tangents(Activation::Tanh, false);
+}
+
+#[test]
+fn tangents_match_central_differences_fast_tanh() {
+    check_tangents(Activation::Tanh, true);
+}
+
+#[test]
+fn tangents_match_central_differences_sine() {
+    check_tangents(Activation::Sine, false);
+}
+
+/// The loss built on tangents must reach the weights: the reverse-mode gradient of
+/// `L = Σ (∂y/∂x)²` with respect to every weight matches central differences of `L`.
+#[test]
+fn weight_gradient_of_a_tangent_loss_matches_differences() {
+    for fast in [false, true] {
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        let shape = MlpShape::new(2, 8, 2, 1);
+        let p = random_params(&shape, &mut rng);
+        let n = 16;
+        let x: Vec<f64> = (0..n * 2).map(|_| rng.gen_range(-1.0..1.0)).collect();
+        let ad = Device::flex().autodiff();
+        let net = NetTensors::new(&shape, &p, Activation::Tanh, fast, &ad, true);
+        let xt = Tensor::<2>::from_data(
+            TensorData::new(x.iter().map(|&v| v as f32).collect::<Vec<_>>(), [n, 2]),
+            &ad,
+        );
+        let seed: Vec<f32> = (0..n).flat_map(|_| [1.0f32, 0.0]).collect();
+        let dt = Tensor::<2>::from_data(TensorData::new(seed, [n, 2]), &ad);
+        let (_, d) = net.forward_tangent(xt, vec![dt]);
+        let loss = d[0].clone().mul(d[0].clone()).sum();
+        let g = net.grads(&loss.backward());
+        // L(θ) in f64 with the derivative ∂y/∂x0 itself by central differences
+        let loss_ref = |q: &[f32]| -> f64 {
+            let hx = 1e-4;
+            (0..n)
+                .map(|r| {
+                    let a = [x[2 * r] + hx, x[2 * r + 1]];
+                    let b = [x[2 * r] - hx, x[2 * r + 1]];
+                    let dy = (reference(&shape, q, Activation::Tanh, &a)
+                        - reference(&shape, q, Activation::Tanh, &b))
+                        / (2.0 * hx);
+                    dy * dy
+                })
+                .sum()
+        };
+        let mut fd = Vec::new();
+        let hp = 1e-2f32;
+        for k in 0..p.len() {
+            let mut a = p.clone();
+            let mut b = p.clone();
+            a[k] += hp;
+            b[k] -= hp;
+            fd.push((loss_ref(&a) - loss_ref(&b)) / (2.0 * hp as f64));
+        }
+        let g64: Vec<f64> = g.iter().map(|&v| v as f64).collect();
+        let e = rel_err(&g64, &fd);
+        println!("fast={fast}: weight-gradient rel err {e:.2e}");
+        assert!(
+            e <= 1e-3,
+            "reverse-mode weight gradient of the tangent loss is off: {e}"
+        );
+    }
+}
+
+fn small_survey() -> (Vec<Pick>, Domain, StartModel) {
+    // v = 400 + 40·depth on flat ground; times from Fomel, Luo & Zhao (2009) eq. 20.
+    let (v0, g) = (400.0, 40.0);
+    let mut picks = Vec::new();
+    for &sx in &[0.0, 30.0, 60.0] {
+        for k in 0..=12 {
+            let rx = 5.0 * k as f64;
+            if (rx - sx).abs() < 1e-9 {
+                continue;
+            }
+            let t = slowfield::analytic::gradient_time(v0, v0, g, (rx - sx).abs());
+            picks.push(Pick {
+                source: [sx, 0.0],
+                receiver: [rx, 0.0],
+                time_s: t,
+                sigma_s: 1e-3,
+            });
+        }
+    }
+    let domain = Domain {
+        x_min: 0.0,
+        x_max: 60.0,
+        z_bottom: -15.0,
+        surface: vec![[0.0, 0.0], [60.0, 0.0]],
+    };
+    (
+        picks,
+        domain,
+        StartModel::Gradient {
+            v_top: 500.0,
+            gradient: 20.0,
+        },
+    )
+}
+
+/// The whole travel-time chain (pair features, factor T0, network) after some
+/// training: `∇T` from the tangents against central differences of `T`, and
+/// reciprocity `T(a, b) = T(b, a)`.
+#[test]
+fn time_gradient_matches_central_differences_after_training() {
+    let (picks, domain, start) = small_survey();
+    for dim in [1u8, 2] {
+        let settings = PinnSettings {
+            steps: 30,
+            tau_width: 32,
+            tau_depth: 3,
+            vel_width: 16,
+            vel_depth: 2,
+            collocation: 256,
+            dim,
+            fast_tanh: true,
+            ..Default::default()
+        };
+        let out = train(&picks, &domain, &start, &settings, None, &mut Silent).unwrap();
+        let m = &out.model;
+        let mut rng = ChaCha8Rng::seed_from_u64(3);
+        let mut pairs = Vec::new();
+        while pairs.len() < 40 {
+            let a: [f64; 2] = [rng.gen_range(2.0..58.0), rng.gen_range(-13.0..-1.0)];
+            let b: [f64; 2] = [rng.gen_range(0.0..60.0), 0.0];
+            if ((a[0] - b[0]).powi(2) + a[1] * a[1]).sqrt() > 5.0 {
+                pairs.push((a, b));
+            }
+        }
+        let g = m.time_gradient(&pairs);
+        let h = 0.05;
+        let mut shifted = Vec::new();
+        for &(a, b) in &pairs {
+            shifted.push(([a[0] + h, a[1]], b));
+            shifted.push(([a[0] - h, a[1]], b));
+            shifted.push(([a[0], a[1] + h], b));
+            shifted.push(([a[0], a[1] - h], b));
+        }
+        let t = m.times(&shifted);
+        let fd: Vec<f64> = (0..pairs.len())
+            .flat_map(|k| {
+                [
+                    (t[4 * k] - t[4 * k + 1]) / (2.0 * h),
+                    (t[4 * k + 2] - t[4 * k + 3]) / (2.0 * h),
+                ]
+            })
+            .collect();
+        let an: Vec<f64> = g.iter().flat_map(|v| [v[0], v[1]]).collect();
+        let e = rel_err(&an, &fd);
+        println!("dim {dim}: ∇T rel err {e:.2e}");
+        assert!(
+            e <= 1e-3,
+            "∇T from tangents differs from central differences: {e}"
+        );
+        let swapped: Vec<_> = pairs.iter().map(|&(a, b)| (b, a)).collect();
+        let t1 = m.times(&pairs);
+        let t2 = m.times(&swapped);
+        for (x, y) in t1.iter().zip(&t2) {
+            assert!(
+                (x - y).abs() <= 1e-6 * x.abs(),
+                "reciprocity broken: {x} vs {y}"
+            );
+        }
+    }
+}
