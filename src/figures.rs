@@ -139,8 +139,11 @@ pub struct SectionDecor<'a> {
     pub footnote: Option<String>,
 }
 
+/// A straight piece of a contour line.
+type Segment = [(f64, f64); 2];
+
 /// Marching-squares segments of the level `c` over the grid's non-air cells.
-fn contour_segments(m: &VelocityGrid, c: f64) -> Vec<[(f64, f64); 2]> {
+fn contour_segments(m: &VelocityGrid, c: f64) -> Vec<Segment> {
     let s = &m.spec;
     let mut out = Vec::new();
     for j in 0..s.nz.saturating_sub(1) {
@@ -245,7 +248,7 @@ pub fn velocity_section(
         }
         l
     });
-    let segs: Vec<(f64, Vec<[(f64, f64); 2]>)> = levels
+    let segs: Vec<(f64, Vec<Segment>)> = levels
         .iter()
         .map(|&c| (c, contour_segments(m, c)))
         .collect();
@@ -373,6 +376,9 @@ pub fn velocity_section(
     })
 }
 
+/// (receiver x, observed ms, predicted ms).
+type Obs = (f64, f64, f64);
+
 /// One shot's travel-time curve.
 #[derive(Debug, Clone)]
 pub struct ShotCurve {
@@ -429,7 +435,7 @@ pub fn traveltime_curves(
             .draw()?;
         for (k, c) in curves.iter().enumerate() {
             let col = shot_colour(k);
-            let (left, right): (Vec<&(f64, f64, f64)>, Vec<&(f64, f64, f64)>) =
+            let (left, right): (Vec<&Obs>, Vec<&Obs>) =
                 c.points.iter().partition(|p| p.0 < c.source_x);
             for side in [left, right] {
                 ch.draw_series(LineSeries::new(
