@@ -394,10 +394,28 @@ fn update(
         a2: p,
         b2: 0.0,
     };
-    if ax.is_none() && (spec.x(i) - f.source.x).abs() <= 0.5 * spec.dx * (1.0 + 1e-9) {
+    // The same reading serves a node whose neighbour on the source side is air (a
+    // surface sloping away from the source): the wave runs along the surface there, and
+    // `∂T/∂a = 0` would make it too slow by O(1) on a staircase of surface nodes.
+    let air_toward = |p: f64, pos: usize, len: usize, stride: usize| {
+        if p < 0.0 {
+            pos + 1 < len && st[n + stride] == AIR
+        } else if p > 0.0 {
+            pos > 0 && st[n - stride] == AIR
+        } else {
+            false
+        }
+    };
+    if ax.is_none()
+        && ((spec.x(i) - f.source.x).abs() <= 0.5 * spec.dx * (1.0 + 1e-9)
+            || air_toward(px, i, spec.nx, 1))
+    {
         ax = Some(virt(px));
     }
-    if az.is_none() && (spec.z(j) - f.source.z).abs() <= 0.5 * spec.dz * (1.0 + 1e-9) {
+    if az.is_none()
+        && ((spec.z(j) - f.source.z).abs() <= 0.5 * spec.dz * (1.0 + 1e-9)
+            || air_toward(pz, j, spec.nz, spec.nx))
+    {
         az = Some(virt(pz));
     }
     let mut tau = f64::INFINITY;

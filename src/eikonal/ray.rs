@@ -169,10 +169,20 @@ pub fn trace_ray(
                 "the time gradient vanishes (a flat spot in the field)",
             ));
         }
-        let q = Point::new(
+        let mut q = Point::new(
             (p.x - step * gx / g).clamp(spec.x0, xmax),
             (p.z - step * gz / g).clamp(spec.z0, zmax),
         );
+        // A ray hugging the surface may step out of the ground (above the level half way
+        // between the last ground node and the first air node): push it back down.
+        let mut tries = 0;
+        while ground_fraction(&spec, field, q) < 0.5 {
+            tries += 1;
+            if tries > 20 || q.z <= spec.z0 {
+                return Err(fail(n, "it left the ground and could not be put back"));
+            }
+            q.z = (q.z - 0.1 * spec.dz).max(spec.z0);
+        }
         points.push(q);
         p = q;
     }
@@ -199,6 +209,21 @@ pub fn trace_ray(
         weights: merge(acc),
         length,
     })
+}
+
+/// Bilinear interpolation of the indicator "this node has a time" (1) or not (0).
+fn ground_fraction(spec: &GridSpec, field: &TimeField, p: Point) -> f64 {
+    let (i, j, wx, wz) = interp::locate(spec, p.x, p.z);
+    let k = spec.idx(i, j);
+    let g = |k: usize| {
+        if field.times()[k] < f64::INFINITY {
+            1.0
+        } else {
+            0.0
+        }
+    };
+    (1.0 - wz) * ((1.0 - wx) * g(k) + wx * g(k + 1))
+        + wz * ((1.0 - wx) * g(k + spec.nx) + wx * g(k + spec.nx + 1))
 }
 
 /// Total ray length attributed to each node (sum of the rays' [`Ray::weights`]), m;
