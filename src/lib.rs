@@ -12,6 +12,7 @@
 
 pub mod analytic;
 pub mod cli;
+pub mod eikonal;
 pub mod error;
 pub mod figures;
 pub mod model;

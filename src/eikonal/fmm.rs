@@ -1,0 +1,437 @@
+//! The fast-marching core: factored eikonal, first/second-order upwind stencils.
+
+use super::interp;
+use super::{EikonalError, FmmOptions, Order, Point};
+use crate::model::GridSpec;
+
+const FAR: u8 = 0;
+const TRIAL: u8 = 1;
+const KNOWN: u8 = 2;
+const AIR: u8 = 3;
+/// Initialised analytically around the source: waits in the heap, never recomputed.
+const FIXED: u8 = 4;
+
+/// First-arrival times of one source on the grid.
+///
+/// Holds `T` and the factor `τ = T/T0` at every node (`+inf` at air nodes and at ground
+/// the wave cannot reach), and the source with its slowness `s_src` for `T0`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TimeField {
+    spec: GridSpec,
+    source: Point,
+    s_src: f64,
+    time: Vec<f64>,
+    tau: Vec<f64>,
+}
+
+impl TimeField {
+    pub(crate) fn empty(spec: GridSpec) -> TimeField {
+        TimeField {
+            spec,
+            source: Point::new(spec.x0, spec.z0),
+            s_src: 0.0,
+            time: vec![f64::INFINITY; spec.len()],
+            tau: vec![f64::INFINITY; spec.len()],
+        }
+    }
+
+    /// The grid.
+    pub fn spec(&self) -> &GridSpec {
+        &self.spec
+    }
+    /// The source position.
+    pub fn source(&self) -> Point {
+        self.source
+    }
+    /// Slowness at the source (bilinear from the ground nodes around it), s/m.
+    pub fn source_slowness(&self) -> f64 {
+        self.s_src
+    }
+    /// Node times, s (index `j·nx + i`; `+inf` at air and unreachable nodes).
+    pub fn times(&self) -> &[f64] {
+        &self.time
+    }
+    /// Node factors `τ = T/T0` (`1` at a source node).
+    pub fn tau(&self) -> &[f64] {
+        &self.tau
+    }
+    /// Takes the node times.
+    pub fn into_times(self) -> Vec<f64> {
+        self.time
+    }
+
+    /// `T0 = s_src·r` and its gradient at `(x, z)`.
+    #[inline]
+    fn t0(&self, x: f64, z: f64) -> (f64, f64, f64) {
+        let (rx, rz) = (x - self.source.x, z - self.source.z);
+        let r = rx.hypot(rz);
+        if r > 0.0 {
+            (self.s_src * r, self.s_src * rx / r, self.s_src * rz / r)
+        } else {
+            (0.0, 0.0, 0.0)
+        }
+    }
+
+    fn sample_tau(&self, p: Point) -> Result<(f64, f64, f64), EikonalError> {
+        interp::sample(&self.spec, p.x, p.z, |k| {
+            let t = self.tau[k];
+            (t < f64::INFINITY).then_some(t)
+        })
+        .ok_or(EikonalError::Unreachable {
+            x: p.x,
+            z: p.z,
+            sx: self.source.x,
+            sz: self.source.z,
+        })
+    }
+
+    /// Travel time at any point of the grid, s: `T0(p)·τ(p)` with `τ` interpolated
+    /// from the reached nodes around `p` (module notes).
+    pub fn time_at(&self, p: Point) -> Result<f64, EikonalError> {
+        let (tau, _, _) = self.sample_tau(p)?;
+        Ok(self.t0(p.x, p.z).0 * tau)
+    }
+
+    /// Gradient `(∂T/∂x, ∂T/∂z)` at any point, s/m: `τ·∇T0 + T0·∇τ`, with `∇T0`
+    /// exact and `∇τ` from the same interpolant as [`TimeField::time_at`].
+    pub fn gradient_at(&self, p: Point) -> Result<(f64, f64), EikonalError> {
+        let (tau, tx, tz) = self.sample_tau(p)?;
+        let (t0, gx, gz) = self.t0(p.x, p.z);
+        Ok((tau * gx + t0 * tx, tau * gz + t0 * tz))
+    }
+}
+
+/// A binary min-heap of `(time, node)` with lazy deletion (stale entries are skipped
+/// when popped).
+#[derive(Debug, Default)]
+struct MinHeap {
+    v: Vec<(f64, u32)>,
+}
+
+impl MinHeap {
+    #[inline]
+    fn push(&mut self, t: f64, k: u32) {
+        let mut n = self.v.len();
+        self.v.push((t, k));
+        while n > 0 {
+            let p = (n - 1) / 2;
+            if self.v[p].0 <= t {
+                break;
+            }
+            self.v[n] = self.v[p];
+            n = p;
+        }
+        self.v[n] = (t, k);
+    }
+
+    #[inline]
+    fn pop(&mut self) -> Option<(f64, u32)> {
+        let top = *self.v.first()?;
+        let last = self.v.pop()?;
+        let len = self.v.len();
+        if len == 0 {
+            return Some(top);
+        }
+        let mut n = 0;
+        loop {
+            let l = 2 * n + 1;
+            if l >= len {
+                break;
+            }
+            let r = l + 1;
+            let c = if r < len && self.v[r].0 < self.v[l].0 {
+                r
+            } else {
+                l
+            };
+            if self.v[c].0 >= last.0 {
+                break;
+            }
+            self.v[n] = self.v[c];
+            n = c;
+        }
+        self.v[n] = last;
+        Some(top)
+    }
+}
+
+/// One axis of the upwind stencil at a node: `∂T/∂a ≈ A·τ + B`, with `σ = +1` when the
+/// upwind neighbour is on the low side.
+#[derive(Clone, Copy)]
+struct Axis {
+    sigma: f64,
+    a1: f64,
+    b1: f64,
+    a2: f64,
+    b2: f64,
+}
+
+/// Reusable buffers of one solver thread: `O(nx·nz)`.
+#[derive(Debug)]
+pub(crate) struct Workspace {
+    state: Vec<u8>,
+    heap: MinHeap,
+}
+
+impl Workspace {
+    pub(crate) fn new(spec: &GridSpec) -> Workspace {
+        Workspace {
+            state: vec![FAR; spec.len()],
+            heap: MinHeap {
+                v: Vec::with_capacity(4 * (spec.nx + spec.nz)),
+            },
+        }
+    }
+
+    /// Solves into `field`. The inputs must have been checked ([`super::validate`],
+    /// [`super::check_point`]).
+    pub(crate) fn solve(
+        &mut self,
+        field: &mut TimeField,
+        slowness: &[f64],
+        source: Point,
+        opts: &FmmOptions,
+    ) {
+        let spec = field.spec;
+        let (nx, nz) = (spec.nx, spec.nz);
+        debug_assert_eq!(slowness.len(), spec.len());
+        for (st, &s) in self.state.iter_mut().zip(slowness) {
+            *st = if s < f64::INFINITY { FAR } else { AIR };
+        }
+        field.time.fill(f64::INFINITY);
+        field.tau.fill(f64::INFINITY);
+        self.heap.v.clear();
+        field.source = source;
+        let ground = |k: usize| slowness[k] < f64::INFINITY;
+        let s_at = |x: f64, z: f64| {
+            interp::sample(&spec, x, z, |k| ground(k).then_some(slowness[k])).map(|v| v.0)
+        };
+        // Checked by check_point: a ground node lies within a cell diagonal.
+        let s_src = s_at(source.x, source.z).unwrap_or(f64::NAN).max(1e-300);
+        field.s_src = s_src;
+
+        // Analytic start: nodes of the cell(s) touching the source get the straight-ray
+        // time by Simpson's rule on the bilinear slowness.
+        let fx = (source.x - spec.x0) / spec.dx;
+        let fz = (source.z - spec.z0) / spec.dz;
+        let eps = 1e-9;
+        let i_lo = ((fx - 1.0 - eps).ceil().max(0.0)) as usize;
+        let i_hi = ((fx + 1.0 + eps).floor() as usize).min(nx - 1);
+        let j_lo = ((fz - 1.0 - eps).ceil().max(0.0)) as usize;
+        let j_hi = ((fz + 1.0 + eps).floor() as usize).min(nz - 1);
+        for j in j_lo..=j_hi {
+            for i in i_lo..=i_hi {
+                let k = spec.idx(i, j);
+                if !ground(k) {
+                    continue;
+                }
+                let (x, z) = (spec.x(i), spec.z(j));
+                let r = (x - source.x).hypot(z - source.z);
+                let (t, tau) = if r <= 1e-12 * spec.dx {
+                    (0.0, 1.0)
+                } else {
+                    let sm = s_at(0.5 * (x + source.x), 0.5 * (z + source.z)).unwrap_or(s_src);
+                    let t = r * (s_src + 4.0 * sm + slowness[k]) / 6.0;
+                    (t, t / (s_src * r))
+                };
+                field.time[k] = t;
+                field.tau[k] = tau;
+                self.state[k] = FIXED;
+                self.heap.push(t, k as u32);
+            }
+        }
+
+        let second = opts.order == Order::Second;
+        let (idx, idz) = (1.0 / spec.dx, 1.0 / spec.dz);
+        while let Some((t, k32)) = self.heap.pop() {
+            let k = k32 as usize;
+            if self.state[k] == KNOWN || t != field.time[k] {
+                continue;
+            }
+            self.state[k] = KNOWN;
+            let (i, j) = (k % nx, k / nx);
+            let mut visit = |n: usize, ni: usize, nj: usize, st: &mut [u8], heap: &mut MinHeap| {
+                if st[n] == FAR || st[n] == TRIAL {
+                    if let Some(tau) = update(field, st, slowness[n], n, ni, nj, idx, idz, second) {
+                        let tn = tau * field.t0(spec.x(ni), spec.z(nj)).0;
+                        // The value from the latest set of accepted neighbours replaces
+                        // the old one (it may be larger: the zone near the source guesses
+                        // a missing axis); stale heap entries are skipped on pop.
+                        if tn != field.time[n] {
+                            field.time[n] = tn;
+                            field.tau[n] = tau;
+                            st[n] = TRIAL;
+                            heap.push(tn, n as u32);
+                        }
+                    }
+                }
+            };
+            if i > 0 {
+                visit(k - 1, i - 1, j, &mut self.state, &mut self.heap);
+            }
+            if i + 1 < nx {
+                visit(k + 1, i + 1, j, &mut self.state, &mut self.heap);
+            }
+            if j > 0 {
+                visit(k - nx, i, j - 1, &mut self.state, &mut self.heap);
+            }
+            if j + 1 < nz {
+                visit(k + nx, i, j + 1, &mut self.state, &mut self.heap);
+            }
+        }
+    }
+}
+
+/// Upwind data along one axis at node `k` (position `pos` of `len` along the axis,
+/// neighbours `stride` apart, inverse spacing `ih`, exact `p = ∂T0/∂a`).
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn axis(
+    f: &TimeField,
+    st: &[u8],
+    k: usize,
+    pos: usize,
+    len: usize,
+    stride: usize,
+    ih: f64,
+    p: f64,
+    t0: f64,
+) -> Option<Axis> {
+    let lo = (pos > 0 && st[k - stride] == KNOWN).then(|| k - stride);
+    let hi = (pos + 1 < len && st[k + stride] == KNOWN).then(|| k + stride);
+    let (n1, sigma, n2) = match (lo, hi) {
+        (None, None) => return None,
+        (Some(a), None) => (a, 1.0, (pos >= 2).then(|| k - 2 * stride)),
+        (None, Some(b)) => (b, -1.0, (pos + 2 < len).then(|| k + 2 * stride)),
+        (Some(a), Some(b)) => {
+            if f.time[a] <= f.time[b] {
+                (a, 1.0, (pos >= 2).then(|| k - 2 * stride))
+            } else {
+                (b, -1.0, (pos + 2 < len).then(|| k + 2 * stride))
+            }
+        }
+    };
+    let tau1 = f.tau[n1];
+    // D τ = σ(α τ − β);  ∂T/∂a = (p + σ T0 α) τ − σ T0 β
+    let a1 = p + sigma * t0 * ih;
+    let b1 = -sigma * t0 * tau1 * ih;
+    let (a2, b2) = match n2 {
+        Some(n2) if st[n2] == KNOWN && f.time[n2] <= f.time[n1] => {
+            let tau2 = f.tau[n2];
+            (
+                p + sigma * t0 * 1.5 * ih,
+                -sigma * t0 * (2.0 * tau1 - 0.5 * tau2) * ih,
+            )
+        }
+        _ => (a1, b1),
+    };
+    Some(Axis {
+        sigma,
+        a1,
+        b1,
+        a2,
+        b2,
+    })
+}
+
+/// Smallest causal `τ` from the given stencil coefficients, `+inf` when none.
+#[inline(always)]
+fn best_tau(ax: Option<(f64, f64, f64)>, az: Option<(f64, f64, f64)>, s: f64) -> f64 {
+    let mut best = f64::INFINITY;
+    if let (Some((sx, axx, bx)), Some((sz, azz, bz))) = (ax, az) {
+        let a = axx * axx + azz * azz;
+        let b = 2.0 * (axx * bx + azz * bz);
+        let c = bx * bx + bz * bz - s * s;
+        let disc = b * b - 4.0 * a * c;
+        if disc >= 0.0 && a > 0.0 {
+            let tau = (-b + disc.sqrt()) / (2.0 * a);
+            if tau > 0.0 && sx * (axx * tau + bx) >= 0.0 && sz * (azz * tau + bz) >= 0.0 {
+                best = tau;
+            }
+        }
+    }
+    for (sg, a, b) in [ax, az].into_iter().flatten() {
+        if a * sg > 0.0 {
+            let tau = (sg * s - b) / a;
+            if tau > 0.0 && tau < best {
+                best = tau;
+            }
+        }
+    }
+    best
+}
+
+/// New `τ` at node `n = (i, j)` from its accepted neighbours.
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn update(
+    f: &TimeField,
+    st: &[u8],
+    s: f64,
+    n: usize,
+    i: usize,
+    j: usize,
+    idx: f64,
+    idz: f64,
+    second: bool,
+) -> Option<f64> {
+    let spec = &f.spec;
+    let (t0, px, pz) = f.t0(spec.x(i), spec.z(j));
+    let mut ax = axis(f, st, n, i, spec.nx, 1, idx, px, t0);
+    let mut az = axis(f, st, n, j, spec.nz, spec.nx, idz, pz, t0);
+    if ax.is_none() && az.is_none() {
+        return None;
+    }
+    // An axis with no accepted neighbour means the node is a minimum of T along that
+    // axis. The usual reading `∂T/∂a = 0` is wrong by O(h/r) in the row (column)
+    // nearest to a source off the nodes, whose minimum lies between two nodes; there
+    // `∂τ/∂a = 0`, i.e. `∂T/∂a = τ·∂T0/∂a`, is exact for a constant velocity and
+    // differs from `0` by at most `s·h/(2r)` anywhere else.
+    let virt = |p: f64| Axis {
+        sigma: 0.0,
+        a1: p,
+        b1: 0.0,
+        a2: p,
+        b2: 0.0,
+    };
+    // The same reading serves a node whose neighbour on the source side is air (a
+    // surface sloping away from the source): the wave runs along the surface there, and
+    // `∂T/∂a = 0` would make it too slow by O(1) on a staircase of surface nodes.
+    let air_toward = |p: f64, pos: usize, len: usize, stride: usize| {
+        if p < 0.0 {
+            pos + 1 < len && st[n + stride] == AIR
+        } else if p > 0.0 {
+            pos > 0 && st[n - stride] == AIR
+        } else {
+            false
+        }
+    };
+    if ax.is_none()
+        && ((spec.x(i) - f.source.x).abs() <= 0.5 * spec.dx * (1.0 + 1e-9)
+            || air_toward(px, i, spec.nx, 1))
+    {
+        ax = Some(virt(px));
+    }
+    if az.is_none()
+        && ((spec.z(j) - f.source.z).abs() <= 0.5 * spec.dz * (1.0 + 1e-9)
+            || air_toward(pz, j, spec.nz, spec.nx))
+    {
+        az = Some(virt(pz));
+    }
+    let mut tau = f64::INFINITY;
+    if second {
+        tau = best_tau(
+            ax.map(|a| (a.sigma, a.a2, a.b2)),
+            az.map(|a| (a.sigma, a.a2, a.b2)),
+            s,
+        );
+    }
+    if !tau.is_finite() {
+        tau = best_tau(
+            ax.map(|a| (a.sigma, a.a1, a.b1)),
+            az.map(|a| (a.sigma, a.a1, a.b1)),
+            s,
+        );
+    }
+    tau.is_finite().then_some(tau)
+}

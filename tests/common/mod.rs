@@ -1,0 +1,60 @@
+//! Helpers shared by the eikonal tests.
+#![allow(dead_code)]
+
+use slowfield::analytic::gradient_time;
+use slowfield::eikonal::Point;
+use slowfield::model::GridSpec;
+
+/// Square grid of `n × m` nodes at spacing `h` with its top row at elevation `z_top`.
+pub fn grid(x0: f64, z_top: f64, h: f64, nx: usize, nz: usize) -> GridSpec {
+    GridSpec {
+        x0,
+        z0: z_top - (nz - 1) as f64 * h,
+        dx: h,
+        dz: h,
+        nx,
+        nz,
+    }
+}
+
+/// Node slownesses of `v(x, z)`.
+pub fn slowness_of(spec: &GridSpec, v: impl Fn(f64, f64) -> f64) -> Vec<f64> {
+    let mut s = vec![0.0; spec.len()];
+    for j in 0..spec.nz {
+        for i in 0..spec.nx {
+            s[spec.idx(i, j)] = 1.0 / v(spec.x(i), spec.z(j));
+        }
+    }
+    s
+}
+
+/// Errors of node times against the constant-gradient answer `v = v0 + g·z`
+/// (Fomel, Luo & Zhao 2009, eq. 20, via `analytic::gradient_time`), skipping nodes within
+/// `skip` cells of the source: (max abs error s, mean abs error s, mean relative error).
+pub fn gradient_errors(
+    spec: &GridSpec,
+    times: &[f64],
+    src: Point,
+    v0: f64,
+    g: f64,
+    skip: f64,
+) -> (f64, f64, f64) {
+    let vs = v0 + g * src.z;
+    let (mut max, mut sum, mut rel, mut n) = (0.0f64, 0.0, 0.0, 0usize);
+    for j in 0..spec.nz {
+        for i in 0..spec.nx {
+            let p = Point::new(spec.x(i), spec.z(j));
+            let r = p.dist(&src);
+            if r <= skip * spec.dx {
+                continue;
+            }
+            let exact = gradient_time(vs, v0 + g * p.z, g, r);
+            let e = (times[spec.idx(i, j)] - exact).abs();
+            max = max.max(e);
+            sum += e;
+            rel += e / exact;
+            n += 1;
+        }
+    }
+    (max, sum / n as f64, rel / n as f64)
+}
