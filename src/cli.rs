@@ -21,6 +21,10 @@ pub struct Cli {
 pub enum Command {
     /// Quality control of a picks file: geometry, apparent velocities, reciprocal pairs, outliers.
     Check(CheckArgs),
+    /// Fast-marching travel times of a model for the geometry of a picks file (also makes synthetic picks).
+    Forward(ForwardArgs),
+    /// Invert picks for a velocity section (PINN), checked by fast marching.
+    Invert(InvertArgs),
     /// Run the whole job on the shipped demo picks.
     Demo(DemoArgs),
 }
@@ -50,6 +54,100 @@ pub struct CheckArgs {
     pub outlier_ms: f64,
 }
 
+/// Arguments of `forward`.
+#[derive(Debug, Args)]
+pub struct ForwardArgs {
+    /// Velocity model (CSV: x,z,velocity_mps; nodes above the ground left out).
+    #[arg(long)]
+    pub model: PathBuf,
+    /// Picks file whose shots and receivers give the geometry (its times are ignored).
+    #[arg(long)]
+    pub picks: PathBuf,
+    /// Ground-surface file (CSV: x,z); by default the surface runs through the stations.
+    #[arg(long)]
+    pub surface: Option<PathBuf>,
+    /// Output picks file.
+    #[arg(short, long)]
+    pub output: PathBuf,
+    /// Add Gaussian noise of this standard deviation to the times, ms (and write it as sigma_ms).
+    #[arg(long, value_name = "MS")]
+    pub noise_ms: Option<f64>,
+    /// Seed of the noise.
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+    /// Solver cell size, m (default: the smaller of the model spacing and a quarter of the receiver spacing).
+    #[arg(long, value_name = "M")]
+    pub cell: Option<f64>,
+    /// Also write the input's times as observed_ms and the residual observed − computed (the file is then a fit table, not a picks file).
+    #[arg(long)]
+    pub residuals: bool,
+    /// First-order upwind stencil instead of second order.
+    #[arg(long)]
+    pub first_order: bool,
+}
+
+/// Inversion method.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Method {
+    /// Physics-informed neural network (mesh-free).
+    Pinn,
+}
+
+/// Model regulariser (flag form).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum RegFlag {
+    /// Smooth model (L2 of the gradient).
+    Smoothness,
+    /// Blocky, layered model (total variation).
+    TotalVariation,
+}
+
+/// Arguments of `invert`.
+#[derive(Debug, Args)]
+pub struct InvertArgs {
+    /// Picks file (CSV: shot,source_x,source_z,receiver_x,receiver_z,time_ms[,sigma_ms]).
+    pub picks: PathBuf,
+    /// Output folder (velocity.csv, fit.csv, figures, report.json, report.html, settings.toml).
+    #[arg(short, long)]
+    pub output: PathBuf,
+    /// Inversion method.
+    #[arg(long, value_enum, default_value_t = Method::Pinn)]
+    pub method: Method,
+    /// 2: velocity varies along the line and with depth; 1: with depth only.
+    #[arg(long, value_parser = clap::value_parser!(u8).range(1..=2))]
+    pub dim: Option<u8>,
+    /// Settings file (TOML; every field optional). Flags override it.
+    #[arg(long, value_name = "RUN.toml")]
+    pub config: Option<PathBuf>,
+    /// Ground-surface file (CSV: x,z); by default the surface runs through the stations.
+    #[arg(long)]
+    pub surface: Option<PathBuf>,
+    /// Training steps at most.
+    #[arg(long)]
+    pub steps: Option<usize>,
+    /// Seed of every random choice.
+    #[arg(long)]
+    pub seed: Option<u64>,
+    /// Uncertainty of picks without their own sigma, ms.
+    #[arg(long, value_name = "MS")]
+    pub sigma_ms: Option<f64>,
+    /// Lowest velocity the model may take, m/s.
+    #[arg(long, value_name = "MPS")]
+    pub v_min: Option<f64>,
+    /// Highest velocity the model may take, m/s.
+    #[arg(long, value_name = "MPS")]
+    pub v_max: Option<f64>,
+    /// Model regulariser.
+    #[arg(long, value_enum)]
+    pub regulariser: Option<RegFlag>,
+    /// Worker threads (results do not depend on it).
+    #[arg(long)]
+    pub threads: Option<usize>,
+    /// Continue the run whose checkpoint is in this folder.
+    #[arg(long, value_name = "DIR")]
+    pub resume: Option<PathBuf>,
+}
+
 /// Arguments of `demo`.
 #[derive(Debug, Args)]
 pub struct DemoArgs {
@@ -62,6 +160,8 @@ pub struct DemoArgs {
 pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Check(a) => workflow::check(&a),
+        Command::Forward(a) => workflow::forward(&a),
+        Command::Invert(a) => workflow::invert(&a),
         Command::Demo(a) => workflow::demo(&a),
     }
 }

@@ -19,6 +19,8 @@ pub mod model;
 pub mod output;
 pub mod pinn;
 pub mod qc;
+pub mod settings;
 pub mod start;
 pub mod survey;
+pub mod verify;
 pub mod workflow;

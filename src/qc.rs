@@ -349,52 +349,94 @@ fn predict(pts: &[(f64, f64)], k: usize) -> Option<f64> {
 }
 
 /// Outliers against a robust per-shot, per-side fit of time against offset: each pick
-/// is compared with the trend of its neighbours; the worst beyond the threshold is
-/// removed and the rest tested again, so one wild pick does not mask or accuse its
-/// neighbours.
+/// is compared with the trend of its neighbours (less its receiver's common delay);
+/// the worst beyond the threshold is removed and the rest tested again, so one wild
+/// pick does not mask or accuse its neighbours.
 fn outliers(survey: &Survey, st: &QcSettings) -> Vec<Outlier> {
-    let mut out = Vec::new();
-    for shot in &survey.shots {
-        for right in [false, true] {
-            let mut pts = side(survey, shot, right);
-            // Picks at the source itself belong to both sides' trend.
-            if let Some(&k0) = shot
-                .picks
-                .iter()
-                .find(|&&k| survey.picks[k].offset() <= SAME_POSITION_M)
-            {
-                pts.insert(0, (0.0, survey.picks[k0].time, usize::MAX));
-            }
-            loop {
-                if pts.len() < 4 {
-                    break;
-                }
-                let xy: Vec<(f64, f64)> = pts.iter().map(|p| (p.0, p.1)).collect();
-                let res: Vec<(usize, f64, f64)> = (0..xy.len())
-                    .filter_map(|k| predict(&xy, k).map(|e| (k, xy[k].1 - e, e)))
-                    .collect();
-                let mut abs: Vec<f64> = res.iter().map(|r| r.1.abs()).collect();
-                let mad = median(&mut abs).unwrap_or(0.0);
-                let thr = st.outlier_floor_s.max(st.outlier_sigmas * 1.4826 * mad);
-                let worst = res
+    // One side of every shot with its leave-one-out residuals.
+    let sides: Vec<Vec<(f64, f64, usize)>> = survey
+        .shots
+        .iter()
+        .flat_map(|shot| {
+            [false, true].map(|right| {
+                let mut pts = side(survey, shot, right);
+                // Picks at the source itself belong to both sides' trend.
+                if let Some(&k0) = shot
+                    .picks
                     .iter()
-                    .filter(|r| pts[r.0].2 != usize::MAX)
-                    .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()));
-                match worst {
-                    Some(&(k, r, e)) if r.abs() > thr => {
-                        let p = &survey.picks[pts[k].2];
-                        out.push(Outlier {
-                            line: p.line,
-                            shot: p.shot.clone(),
-                            receiver_x: p.receiver.x,
-                            time_ms: p.time * 1e3,
-                            expected_ms: e * 1e3,
-                            threshold_ms: thr * 1e3,
-                        });
-                        pts.remove(k);
-                    }
-                    _ => break,
+                    .find(|&&k| survey.picks[k].offset() <= SAME_POSITION_M)
+                {
+                    pts.insert(0, (0.0, survey.picks[k0].time, usize::MAX));
                 }
+                pts
+            })
+        })
+        .collect();
+    // Receiver terms: a slow pocket under a geophone delays every shot recorded there,
+    // a bad pick only one. The median residual of a receiver over all its shots is
+    // taken off before testing, so geology common to all shots is not called an outlier.
+    let key = |x: f64| (x * 100.0).round() as i64;
+    let mut per_rec: std::collections::HashMap<i64, Vec<f64>> = std::collections::HashMap::new();
+    for pts in &sides {
+        let xy: Vec<(f64, f64)> = pts.iter().map(|p| (p.0, p.1)).collect();
+        for k in 1..xy.len().saturating_sub(1) {
+            if pts[k].2 != usize::MAX {
+                if let Some(e) = predict(&xy, k) {
+                    let rx = survey.picks[pts[k].2].receiver.x;
+                    per_rec.entry(key(rx)).or_default().push(xy[k].1 - e);
+                }
+            }
+        }
+    }
+    let term: std::collections::HashMap<i64, f64> = per_rec
+        .into_iter()
+        .filter(|(_, v)| v.len() >= 3)
+        .map(|(k, mut v)| (k, median(&mut v).unwrap_or(0.0)))
+        .collect();
+    let mut out = Vec::new();
+    for mut pts in sides {
+        loop {
+            if pts.len() < 4 {
+                break;
+            }
+            let xy: Vec<(f64, f64)> = pts.iter().map(|p| (p.0, p.1)).collect();
+            let res: Vec<(usize, f64, f64)> = (0..xy.len())
+                .filter(|&k| pts[k].2 != usize::MAX)
+                .filter_map(|k| {
+                    let rx = survey.picks[pts[k].2].receiver.x;
+                    let t = term.get(&key(rx)).copied().unwrap_or(0.0);
+                    predict(&xy, k).map(|e| (k, xy[k].1 - e - t, e + t))
+                })
+                .collect();
+            let mut abs: Vec<f64> = res.iter().map(|r| r.1.abs()).collect();
+            let mad = median(&mut abs).unwrap_or(0.0);
+            let thr = st.outlier_floor_s.max(st.outlier_sigmas * 1.4826 * mad);
+            // the two ends are extrapolated across a possible crossover kink: twice the threshold
+            let limit = |k: usize| {
+                if k == 0 || k + 1 == pts.len() {
+                    2.0 * thr
+                } else {
+                    thr
+                }
+            };
+            let worst = res
+                .iter()
+                .filter(|r| r.1.abs() > limit(r.0))
+                .max_by(|a, b| (a.1.abs() / limit(a.0)).total_cmp(&(b.1.abs() / limit(b.0))));
+            match worst {
+                Some(&(k, _, e)) => {
+                    let p = &survey.picks[pts[k].2];
+                    out.push(Outlier {
+                        line: p.line,
+                        shot: p.shot.clone(),
+                        receiver_x: p.receiver.x,
+                        time_ms: p.time * 1e3,
+                        expected_ms: e * 1e3,
+                        threshold_ms: limit(k) * 1e3,
+                    });
+                    pts.remove(k);
+                }
+                None => break,
             }
         }
     }

@@ -97,7 +97,7 @@ pub enum Regulariser {
 /// Every knob of the engine, each with a default that suits a typical spread
 /// (70–150 m line, 20–30 m deep, 50–70 receivers, 12–20 shots).
 #[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
-#[serde(default)]
+#[serde(default, deny_unknown_fields)]
 pub struct PinnSettings {
     /// Lowest velocity the model may take, m/s.
     pub v_min: f64,

@@ -1,0 +1,121 @@
+//! A run's settings: read from a TOML file (every field optional), overridden by flags,
+//! written back into the output folder so that the run can be repeated exactly.
+
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{read_text, InputError};
+use crate::pinn::PinnSettings;
+
+/// Settings of an inversion run.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct RunSettings {
+    /// Uncertainty of picks that carry no `sigma_ms` of their own, ms.
+    pub sigma_ms: f64,
+    /// Node spacing of the output model and of the fast-marching check, m
+    /// (default: the smaller of 0.5 m and a quarter of the receiver spacing).
+    pub cell_m: Option<f64>,
+    /// Depth of the model below the lowest station, m (default: the deepest turning
+    /// ray of the starting model plus 30 %, at least 10 m).
+    pub depth_m: Option<f64>,
+    /// Velocity whose depth is mapped along the line (e.g. the top of rock), m/s.
+    pub interface_mps: f64,
+    /// The PINN's own settings.
+    pub pinn: PinnSettings,
+}
+
+impl Default for RunSettings {
+    fn default() -> Self {
+        RunSettings {
+            sigma_ms: 0.5,
+            cell_m: None,
+            depth_m: None,
+            interface_mps: 1500.0,
+            pinn: PinnSettings::default(),
+        }
+    }
+}
+
+impl RunSettings {
+    /// Reads a settings file; errors name the line and column.
+    pub fn read(path: &Path) -> Result<RunSettings, InputError> {
+        let text = read_text(path, "settings")?;
+        Self::parse(path, &text)
+    }
+
+    /// Parses settings text; `path` only names the source in errors.
+    pub fn parse(path: &Path, text: &str) -> Result<RunSettings, InputError> {
+        toml::from_str(text).map_err(|e| {
+            let line = e.span().map(|s| text[..s.start.min(text.len())].matches('\n').count() as u64 + 1);
+            let msg = e.message().to_string();
+            let err = match line {
+                Some(l) => InputError::at(path, l, msg),
+                None => InputError::file(path, msg),
+            };
+            err.hint("see `slowfield invert --help` and the settings.toml an earlier run wrote for every field and its default")
+        })
+    }
+
+    /// The settings as TOML text.
+    pub fn to_toml(&self) -> String {
+        toml::to_string_pretty(self).expect("settings serialise to TOML")
+    }
+
+    /// Checks the run-level values (the PINN checks its own).
+    pub fn validate(&self) -> Result<(), String> {
+        if !(self.sigma_ms.is_finite() && self.sigma_ms > 0.0) {
+            return Err(format!(
+                "sigma_ms = {} must be a positive number of milliseconds",
+                self.sigma_ms
+            ));
+        }
+        if let Some(c) = self.cell_m {
+            if !(c.is_finite() && c > 0.0) {
+                return Err(format!("cell_m = {c} must be a positive number of metres"));
+            }
+        }
+        if let Some(d) = self.depth_m {
+            if !(d.is_finite() && d > 0.0) {
+                return Err(format!("depth_m = {d} must be a positive number of metres"));
+            }
+        }
+        if !(self.interface_mps.is_finite() && self.interface_mps > 0.0) {
+            return Err(format!(
+                "interface_mps = {} must be a positive velocity",
+                self.interface_mps
+            ));
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn round_trip_and_partial_files() {
+        let s = RunSettings::default();
+        let back = RunSettings::parse(Path::new("s.toml"), &s.to_toml()).unwrap();
+        assert_eq!(s, back);
+        let p = RunSettings::parse(Path::new("s.toml"), "sigma_ms = 1.0\n[pinn]\nsteps = 10\n")
+            .unwrap();
+        assert_eq!(p.sigma_ms, 1.0);
+        assert_eq!(p.pinn.steps, 10);
+        assert_eq!(p.pinn.tau_width, PinnSettings::default().tau_width);
+    }
+
+    #[test]
+    fn unknown_field_names_its_line() {
+        let e = RunSettings::parse(
+            Path::new("s.toml"),
+            "sigma_ms = 1.0\n\n[pinn]\nstepz = 10\n",
+        )
+        .unwrap_err();
+        let m = e.to_string();
+        assert!(m.starts_with("s.toml:4:"), "{m}");
+        assert!(m.contains("stepz"), "{m}");
+    }
+}

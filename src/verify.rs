@@ -1,0 +1,195 @@
+//! The judge of every model: fast-marching times for a survey's geometry on a solver
+//! grid, and the misfit of those times to the picks.
+//!
+//! A model is sampled onto the solver grid bilinearly in velocity; the survey's ground
+//! surface decides which solver nodes are air. Where the surface lies above the model's
+//! top node of a column (a coarse model under a fine surface), the velocity of the
+//! model's top ground is carried up to the surface.
+
+use serde::Serialize;
+
+use crate::eikonal::{self, EikonalError, FmmOptions, Point};
+use crate::model::{GridSpec, VelocityGrid};
+use crate::survey::{Surface, Survey};
+
+/// Why a model cannot be checked against a survey.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum VerifyError {
+    /// A station outside the model.
+    #[error("the {what} of shot '{shot}' at x={x:.3} m, z={z:.3} m (picks line {line}) lies outside the model, which covers x {x0:.2}..{x1:.2} m and z {z0:.2}..{z1:.2} m: extend the model to cover every source and receiver")]
+    Outside {
+        /// "source" or "receiver"
+        what: &'static str,
+        /// shot id
+        shot: String,
+        /// position, m
+        x: f64,
+        /// position, m
+        z: f64,
+        /// picks file line
+        line: u64,
+        /// model extent
+        x0: f64,
+        /// model extent
+        x1: f64,
+        /// model extent
+        z0: f64,
+        /// model extent
+        z1: f64,
+    },
+    /// Two receivers the solver grid cannot tell apart.
+    #[error("receivers at x={a:.3} m and x={b:.3} m are closer than the solver cell of {cell} m: give a smaller --cell or merge the two stations")]
+    TooCoarse {
+        /// first receiver x
+        a: f64,
+        /// second receiver x
+        b: f64,
+        /// the cell, m
+        cell: f64,
+    },
+    /// The cell size asked for is unusable.
+    #[error("solver cell {0} m must be a positive number no larger than the model itself")]
+    BadCell(f64),
+    /// The solver refused.
+    #[error("{0}")]
+    Solver(#[from] EikonalError),
+}
+
+/// A default solver cell: fine enough for the solver's accuracy and to separate the
+/// receivers (a quarter of their smallest spacing), never coarser than the model.
+pub fn default_cell(model: &GridSpec, survey: &Survey) -> f64 {
+    let mut xs: Vec<f64> = survey.receivers().iter().map(|p| p.x).collect();
+    xs.sort_by(f64::total_cmp);
+    let spacing = xs
+        .windows(2)
+        .map(|w| w[1] - w[0])
+        .filter(|d| *d > 0.01)
+        .fold(f64::INFINITY, f64::min);
+    let c = model.dx.min(model.dz).min(spacing / 4.0).min(1.0);
+    // round down to a "nice" value so the grid stays readable: 1, 0.5, 0.25, 0.2, 0.1, ...
+    let nice = [1.0, 0.5, 0.25, 0.2, 0.1, 0.05, 0.025, 0.02, 0.01];
+    nice.into_iter().find(|&n| n <= c + 1e-12).unwrap_or(0.01)
+}
+
+/// The model on a solver grid of spacing `cell` over the model's extent, raised to the
+/// surface's highest point, with air above `surface`.
+pub fn solver_grid(
+    model: &VelocityGrid,
+    surface: &Surface,
+    cell: f64,
+) -> Result<VelocityGrid, VerifyError> {
+    let m = &model.spec;
+    if !(cell.is_finite() && cell > 0.0) || cell > (m.x_max() - m.x0) {
+        return Err(VerifyError::BadCell(cell));
+    }
+    let top = surface.nodes.iter().map(|p| p.z).fold(m.z_max(), f64::max);
+    let nx = ((m.x_max() - m.x0) / cell).round() as usize + 1;
+    let nz = ((top - m.z0) / cell).ceil() as usize + 1;
+    let spec = GridSpec {
+        x0: m.x0,
+        z0: m.z0,
+        dx: (m.x_max() - m.x0) / (nx - 1) as f64,
+        dz: cell,
+        nx,
+        nz,
+    };
+    let model_top = model.surface();
+    Ok(VelocityGrid::from_fn(spec, Some(surface), |x, z| {
+        let zt = model_top.elevation(x);
+        model
+            .sample(x, z.min(zt))
+            .or_else(|| model.sample(x, zt - 1e-9 * m.dz))
+            .unwrap_or(f64::NAN)
+    }))
+}
+
+/// Fast-marching times for every pick of `survey`, in file order, s.
+///
+/// `grid` is a solver grid (see [`solver_grid`]); shots run in parallel.
+pub fn predict(
+    survey: &Survey,
+    grid: &VelocityGrid,
+    opts: &FmmOptions,
+) -> Result<Vec<f64>, VerifyError> {
+    let spec = &grid.spec;
+    for p in &survey.picks {
+        for (what, q) in [("source", p.source), ("receiver", p.receiver)] {
+            if !spec.contains(q.x, q.z) {
+                return Err(VerifyError::Outside {
+                    what,
+                    shot: p.shot.clone(),
+                    x: q.x,
+                    z: q.z,
+                    line: p.line,
+                    x0: spec.x0,
+                    x1: spec.x_max(),
+                    z0: spec.z0,
+                    z1: spec.z_max(),
+                });
+            }
+        }
+    }
+    let recs = survey.receivers();
+    let mut xs: Vec<f64> = recs.iter().map(|p| p.x).collect();
+    xs.sort_by(f64::total_cmp);
+    if let Some(w) = xs
+        .windows(2)
+        .find(|w| w[1] - w[0] > 0.01 && w[1] - w[0] < spec.dx)
+    {
+        return Err(VerifyError::TooCoarse {
+            a: w[0],
+            b: w[1],
+            cell: spec.dx,
+        });
+    }
+    let slowness = grid.slowness();
+    let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
+    let receivers: Vec<Vec<Point>> = survey
+        .shots
+        .iter()
+        .map(|s| s.picks.iter().map(|&k| survey.picks[k].receiver).collect())
+        .collect();
+    let times = eikonal::solve_many(spec, &slowness, &sources, &receivers, opts)?;
+    let mut out = vec![0.0; survey.picks.len()];
+    for (shot, t) in survey.shots.iter().zip(times) {
+        for (&k, t) in shot.picks.iter().zip(t) {
+            out[k] = t;
+        }
+    }
+    Ok(out)
+}
+
+/// How well predicted times explain the picks.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Misfit {
+    /// Number of picks.
+    pub picks: usize,
+    /// Root-mean-square residual, ms.
+    pub rms_ms: f64,
+    /// Mean residual (observed − predicted), ms.
+    pub mean_ms: f64,
+    /// Largest |residual|, ms.
+    pub max_abs_ms: f64,
+    /// Reduced chi-square: mean of (residual/σ)².
+    pub chi2: f64,
+}
+
+/// Misfit of `predicted` to the picks; `sigma` is the default for picks without one, s.
+pub fn misfit(survey: &Survey, predicted: &[f64], sigma: f64) -> Misfit {
+    let n = survey.picks.len().max(1) as f64;
+    let (mut ss, mut sum, mut max, mut chi) = (0.0, 0.0, 0.0f64, 0.0);
+    for (p, &t) in survey.picks.iter().zip(predicted) {
+        let r = p.time - t;
+        ss += r * r;
+        sum += r;
+        max = max.max(r.abs());
+        chi += (r / p.sigma_or(sigma)).powi(2);
+    }
+    Misfit {
+        picks: survey.picks.len(),
+        rms_ms: (ss / n).sqrt() * 1e3,
+        mean_ms: sum / n * 1e3,
+        max_abs_ms: max * 1e3,
+        chi2: chi / n,
+    }
+}

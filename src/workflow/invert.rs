@@ -1,0 +1,660 @@
+//! `slowfield invert`: PINN tomography of a picks file, verified by fast marching.
+
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use anyhow::{bail, Context};
+use serde::Serialize;
+
+use crate::eikonal::{self, FmmOptions, Point, RayOptions};
+use crate::figures::{self, SectionDecor, ShotCurve};
+use crate::model::{GridSpec, VelocityGrid};
+use crate::output::write_atomic;
+use crate::pinn::{self, Checkpoint, Observer, PinnOutcome, StepLog};
+use crate::settings::RunSettings;
+use crate::start::{fit_linear, StartFit};
+use crate::survey::Survey;
+use crate::verify::{self, Misfit};
+
+/// The usual cautions, carried by every report.
+pub const CAUTION: &str = "A refraction tomogram is one of many models that fit the picks; a slow layer under a fast one is invisible to first arrivals; lateral resolution is about the geophone spacing at best and degrades with depth. Anything used for excavation, foundations or slope safety must be confirmed by boreholes and decided by a licensed engineer or geologist under local codes.";
+
+/// Name of the checkpoint file inside an output folder.
+pub const CHECKPOINT: &str = "checkpoint.bin";
+
+/// What the caller asks for.
+#[derive(Debug, Clone)]
+pub struct InvertJob {
+    /// Picks file (for provenance in the report).
+    pub picks_path: PathBuf,
+    /// Output folder.
+    pub out: PathBuf,
+    /// Settings in force.
+    pub settings: RunSettings,
+    /// Checkpoint to continue from.
+    pub resume: Option<Checkpoint>,
+    /// Show a progress bar (on a terminal).
+    pub progress: bool,
+}
+
+/// The geometry of the model: where the PINN works and where results are gridded.
+#[derive(Debug, Clone, Serialize)]
+pub struct Geometry {
+    /// Start model fitted to the picks.
+    pub start: StartFit,
+    /// Depth of the model below the lowest station, m.
+    pub depth_m: f64,
+    /// Output and verification grid.
+    #[serde(skip)]
+    pub grid: GridSpec,
+    /// Output grid spacing, m.
+    pub cell_m: f64,
+}
+
+/// Works out the model's extent and grid from the picks and the settings.
+pub fn geometry(survey: &Survey, s: &RunSettings) -> Geometry {
+    let start = fit_linear(survey, s.sigma_ms * 1e-3);
+    let depth = s
+        .depth_m
+        .unwrap_or_else(|| (1.3 * start.deepest_turning_m).max(10.0).ceil());
+    let (x0, x1) = survey.x_range();
+    let cell = s.cell_m.unwrap_or_else(|| {
+        let g = GridSpec {
+            x0,
+            z0: 0.0,
+            dx: 0.5,
+            dz: 0.5,
+            nx: 2,
+            nz: 2,
+        };
+        verify::default_cell(&g, survey)
+    });
+    let ztop = survey
+        .surface
+        .nodes
+        .iter()
+        .map(|p| p.z)
+        .fold(f64::NEG_INFINITY, f64::max);
+    let zlow = survey
+        .stations()
+        .iter()
+        .map(|p| p.z)
+        .fold(f64::INFINITY, f64::min);
+    let z0 = zlow - depth;
+    let nx = ((x1 - x0) / cell).round() as usize + 1;
+    let nz = ((ztop - z0) / cell).ceil() as usize + 1;
+    let grid = GridSpec {
+        x0,
+        z0,
+        dx: (x1 - x0) / (nx - 1).max(1) as f64,
+        dz: cell,
+        nx,
+        nz,
+    };
+    Geometry {
+        start,
+        depth_m: depth,
+        grid,
+        cell_m: cell,
+    }
+}
+
+/// The PINN's view of the picks.
+pub fn pinn_inputs(
+    survey: &Survey,
+    geo: &Geometry,
+    s: &RunSettings,
+) -> (Vec<pinn::Pick>, pinn::Domain, pinn::StartModel) {
+    let picks = survey
+        .picks
+        .iter()
+        .map(|p| pinn::Pick {
+            source: [p.source.x, p.source.z],
+            receiver: [p.receiver.x, p.receiver.z],
+            time_s: p.time,
+            sigma_s: p.sigma_or(s.sigma_ms * 1e-3),
+        })
+        .collect();
+    let domain = pinn::Domain {
+        x_min: geo.grid.x0,
+        x_max: geo.grid.x_max(),
+        z_bottom: geo.grid.z0,
+        surface: survey.surface.nodes.iter().map(|p| [p.x, p.z]).collect(),
+    };
+    let start = pinn::StartModel::Gradient {
+        v_top: geo.start.model.v0,
+        gradient: geo.start.model.g,
+    };
+    (picks, domain, start)
+}
+
+/// Progress bar and checkpoint writer.
+struct Watch {
+    bar: Option<indicatif::ProgressBar>,
+    checkpoint: PathBuf,
+    error: Option<String>,
+    last_chi2: Option<f64>,
+}
+
+impl Observer for Watch {
+    fn on_step(&mut self, s: &StepLog) {
+        if let Some(c) = s.chi2 {
+            self.last_chi2 = Some(c);
+        }
+        if let Some(b) = &self.bar {
+            b.set_position(s.step as u64);
+            if s.step % 10 == 0 || s.chi2.is_some() {
+                b.set_message(format!(
+                    "data {:.3}  eikonal {:.2e}  reg {:.2e}  rms {:.2} ms{}",
+                    s.data,
+                    s.eikonal,
+                    s.regulariser,
+                    s.data_rms_ms,
+                    self.last_chi2
+                        .map_or(String::new(), |c| format!("  χ² {c:.2}"))
+                ));
+            }
+        }
+    }
+    fn on_checkpoint(&mut self, cp: &Checkpoint) {
+        if let Err(e) = write_atomic(&self.checkpoint, &cp.to_bytes()) {
+            self.error = Some(format!(
+                "cannot write the checkpoint {}: {e}",
+                self.checkpoint.display()
+            ));
+        }
+    }
+}
+
+/// Everything the report says about a run.
+#[derive(Debug, Clone, Serialize)]
+pub struct InvertReport {
+    /// Tool and version.
+    pub tool: String,
+    /// Picks file.
+    pub picks: String,
+    /// Method.
+    pub method: &'static str,
+    /// Seed of every random choice.
+    pub seed: u64,
+    /// Number of picks and shots.
+    pub n_picks: usize,
+    /// Number of shots.
+    pub n_shots: usize,
+    /// Model geometry and start model.
+    pub geometry: Geometry,
+    /// Steps trained (in total, resumed runs included).
+    pub steps: usize,
+    /// Why training stopped.
+    pub stop: String,
+    /// Wall-clock seconds of this invocation.
+    pub run_seconds: f64,
+    /// Misfit of the fast-marching times through the PINN's velocity: the one that counts.
+    pub fmm_misfit: Misfit,
+    /// Misfit of the network's own travel times.
+    pub network_misfit: Misfit,
+    /// RMS of the eikonal residual v·|∇T| − 1 of the trained networks.
+    pub eikonal_rms: f64,
+    /// Share of model nodes crossed by at least one ray.
+    pub covered_fraction: f64,
+    /// Depth of the chosen velocity along the line: (x, depth below ground) where rays reach it.
+    pub interface: InterfaceDepth,
+    /// Loss history: first, best and last evaluated values.
+    pub history: HistorySummary,
+    /// Settings used (also in settings.toml).
+    pub settings: RunSettings,
+    /// Warnings from the picks.
+    pub warnings: Vec<String>,
+    /// Cautions.
+    pub caution: &'static str,
+}
+
+/// Depth to one velocity along the line.
+#[derive(Debug, Clone, Serialize)]
+pub struct InterfaceDepth {
+    /// The velocity, m/s.
+    pub velocity_mps: f64,
+    /// (x, depth below the ground) where the model reaches it within the ray coverage, m.
+    pub points: Vec<[f64; 2]>,
+}
+
+/// First, best and last of the evaluated objective.
+#[derive(Debug, Clone, Serialize)]
+pub struct HistorySummary {
+    /// Data term at the first step.
+    pub first_data: f64,
+    /// Data term at the last step.
+    pub last_data: f64,
+    /// Eikonal term at the first step.
+    pub first_eikonal: f64,
+    /// Eikonal term at the last step.
+    pub last_eikonal: f64,
+    /// (step, χ²) at every evaluation.
+    pub chi2: Vec<(usize, f64)>,
+}
+
+fn summary(h: &[StepLog]) -> HistorySummary {
+    let first = h.first();
+    let last = h.last();
+    HistorySummary {
+        first_data: first.map_or(f64::NAN, |s| s.data),
+        last_data: last.map_or(f64::NAN, |s| s.data),
+        first_eikonal: first.map_or(f64::NAN, |s| s.eikonal),
+        last_eikonal: last.map_or(f64::NAN, |s| s.eikonal),
+        chi2: h
+            .iter()
+            .filter_map(|s| s.chi2.map(|c| (s.step, c)))
+            .collect(),
+    }
+}
+
+/// Depth below ground where the velocity first reaches `v` in each covered column.
+fn interface_depth(
+    model: &VelocityGrid,
+    covered: &[bool],
+    survey: &Survey,
+    v: f64,
+) -> InterfaceDepth {
+    let s = &model.spec;
+    let mut pts = Vec::new();
+    for i in 0..s.nx {
+        for j in (0..s.nz).rev() {
+            let k = s.idx(i, j);
+            let vel = model.v[k];
+            if vel.is_nan() {
+                continue;
+            }
+            if vel >= v {
+                if covered[k] {
+                    // interpolate within the node interval above
+                    let mut z = s.z(j);
+                    if j + 1 < s.nz {
+                        let va = model.v[s.idx(i, j + 1)];
+                        if !va.is_nan() && va < v {
+                            z = s.z(j) + (vel - v) / (vel - va) * s.dz;
+                        }
+                    }
+                    pts.push([s.x(i), survey.surface.elevation(s.x(i)) - z]);
+                }
+                break;
+            }
+        }
+    }
+    InterfaceDepth {
+        velocity_mps: v,
+        points: pts,
+    }
+}
+
+/// Runs the inversion and writes every output. Inputs are checked before the output
+/// folder is touched.
+pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
+    let t0 = Instant::now();
+    let s = &job.settings;
+    s.validate()
+        .map_err(|e| anyhow::anyhow!("invalid setting: {e}"))?;
+    let geo = geometry(survey, s);
+    let (picks, domain, start) = pinn_inputs(survey, &geo, s);
+    // the start model itself must lie within the bounds
+    let (v_lo, v_hi) = (geo.start.model.v0, geo.start.model.velocity(geo.depth_m));
+    if v_lo <= s.pinn.v_min || v_hi >= s.pinn.v_max {
+        bail!(
+            "the starting model fitted to the picks runs from {v_lo:.0} to {v_hi:.0} m/s, outside the velocity bounds {}..{} m/s: widen v_min/v_max",
+            s.pinn.v_min,
+            s.pinn.v_max
+        );
+    }
+    std::fs::create_dir_all(&job.out)
+        .with_context(|| format!("cannot create the output folder {}", job.out.display()))?;
+    let mut watch = Watch {
+        bar: job.progress.then(|| {
+            let b = indicatif::ProgressBar::new(s.pinn.steps as u64);
+            b.set_style(
+                indicatif::ProgressStyle::with_template(
+                    "{elapsed_precise} [{bar:30}] {pos}/{len} {msg}",
+                )
+                .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar())
+                .progress_chars("=> "),
+            );
+            b
+        }),
+        checkpoint: job.out.join(CHECKPOINT),
+        error: None,
+        last_chi2: None,
+    };
+    let result = pinn::train(
+        &picks,
+        &domain,
+        &start,
+        &s.pinn,
+        job.resume.clone(),
+        &mut watch,
+    );
+    if let Some(b) = &watch.bar {
+        b.finish_and_clear();
+    }
+    let outcome: PinnOutcome = match result {
+        Ok(o) => o,
+        Err(pinn::PinnError::Diverged {
+            step,
+            retries,
+            best,
+        }) => {
+            eprintln!("warning: training diverged at step {step} after {retries} roll-backs; writing the best model so far");
+            *best
+        }
+        Err(e) => return Err(anyhow::anyhow!("{e}")),
+    };
+    if let Some(e) = watch.error {
+        eprintln!("warning: {e}");
+    }
+    // Honest verification: the velocity network sampled onto the grid, times by fast marching.
+    let v = outcome.model.velocity_on_grid(&geo.grid);
+    let model = VelocityGrid { spec: geo.grid, v };
+    let model = fill_surface_air(model, &survey.surface);
+    let opts = FmmOptions::default();
+    let fmm_times = verify::predict(survey, &model, &opts)
+        .map_err(|e| anyhow::anyhow!("verifying the model: {e}"))?;
+    let sigma = s.sigma_ms * 1e-3;
+    let fmm_misfit = verify::misfit(survey, &fmm_times, sigma);
+    let network_misfit = verify::misfit(survey, &outcome.predicted_s, sigma);
+    let covered = coverage(survey, &model, &opts)?;
+    let covered_fraction = {
+        let ground: Vec<usize> = (0..model.v.len()).filter(|&k| !model.is_air(k)).collect();
+        ground.iter().filter(|&&k| covered[k]).count() as f64 / ground.len().max(1) as f64
+    };
+    let interface = interface_depth(&model, &covered, survey, s.interface_mps);
+    let report = InvertReport {
+        tool: format!("slowfield {}", env!("CARGO_PKG_VERSION")),
+        picks: job.picks_path.display().to_string(),
+        method: if s.pinn.dim == 1 {
+            "pinn (1-D velocity)"
+        } else {
+            "pinn"
+        },
+        seed: s.pinn.seed,
+        n_picks: survey.picks.len(),
+        n_shots: survey.shots.len(),
+        geometry: geo.clone(),
+        steps: outcome.steps,
+        stop: format!("{:?}", outcome.stop),
+        run_seconds: t0.elapsed().as_secs_f64(),
+        fmm_misfit,
+        network_misfit,
+        eikonal_rms: outcome.eikonal_rms,
+        covered_fraction,
+        interface,
+        history: summary(&outcome.history),
+        settings: s.clone(),
+        warnings: survey.warnings.clone(),
+        caution: CAUTION,
+    };
+    write_outputs(survey, job, &model, &covered, &fmm_times, &outcome, &report)?;
+    Ok(report)
+}
+
+/// Nodes between the grid's top row and the surface stay air; nodes the network left
+/// undefined under the ground (none expected) are an error upstream.
+fn fill_surface_air(model: VelocityGrid, surface: &crate::survey::Surface) -> VelocityGrid {
+    let s = model.spec;
+    VelocityGrid::from_fn(s, Some(surface), |x, z| {
+        let i = ((x - s.x0) / s.dx).round() as usize;
+        let j = ((z - s.z0) / s.dz).round() as usize;
+        let v = model.v[s.idx(i.min(s.nx - 1), j.min(s.nz - 1))];
+        if v.is_nan() {
+            // the node sits on the surface within rounding: take the node below
+            model.v[s.idx(i.min(s.nx - 1), j.saturating_sub(1))]
+        } else {
+            v
+        }
+    })
+}
+
+/// Nodes crossed by at least one ray of the fast-marching check.
+fn coverage(survey: &Survey, model: &VelocityGrid, opts: &FmmOptions) -> anyhow::Result<Vec<bool>> {
+    let slowness = model.slowness();
+    let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
+    let receivers: Vec<Vec<Point>> = survey
+        .shots
+        .iter()
+        .map(|s| s.picks.iter().map(|&k| survey.picks[k].receiver).collect())
+        .collect();
+    let rays = eikonal::solve_many_rays(
+        &model.spec,
+        &slowness,
+        &sources,
+        &receivers,
+        opts,
+        &RayOptions::default(),
+    )
+    .map_err(|e| anyhow::anyhow!("tracing rays for the coverage: {e}"))?;
+    let cov = eikonal::node_coverage(&model.spec, rays.iter().flatten().map(|r| &r.ray));
+    Ok(cov.iter().map(|&c| c > 0.0).collect())
+}
+
+fn write_outputs(
+    survey: &Survey,
+    job: &InvertJob,
+    model: &VelocityGrid,
+    covered: &[bool],
+    fmm_times: &[f64],
+    outcome: &PinnOutcome,
+    report: &InvertReport,
+) -> anyhow::Result<()> {
+    let out = &job.out;
+    let w = |name: &str, bytes: &[u8]| -> anyhow::Result<()> {
+        write_atomic(&out.join(name), bytes)
+            .with_context(|| format!("cannot write {}", out.join(name).display()))
+    };
+    w("velocity.csv", model.to_csv().as_bytes())?;
+    let sigma = job.settings.sigma_ms * 1e-3;
+    let mut fit = String::from(
+        "shot,source_x,source_z,receiver_x,receiver_z,observed_ms,predicted_ms,residual_ms,sigma_ms,network_ms\n",
+    );
+    for (k, p) in survey.picks.iter().enumerate() {
+        fit.push_str(&format!(
+            "{},{},{},{},{},{:.4},{:.4},{:.4},{:.4},{:.4}\n",
+            p.shot,
+            p.source.x,
+            p.source.z,
+            p.receiver.x,
+            p.receiver.z,
+            p.time * 1e3,
+            fmm_times[k] * 1e3,
+            (p.time - fmm_times[k]) * 1e3,
+            p.sigma_or(sigma) * 1e3,
+            outcome.predicted_s[k] * 1e3
+        ));
+    }
+    w("fit.csv", fit.as_bytes())?;
+    let mut iface = format!(
+        "x,depth_m\n# depth below ground of {} m/s, covered columns only\n",
+        report.interface.velocity_mps
+    );
+    for p in &report.interface.points {
+        iface.push_str(&format!("{:.3},{:.3}\n", p[0], p[1]));
+    }
+    w("interface-depth.csv", iface.as_bytes())?;
+    w("settings.toml", job.settings.to_toml().as_bytes())?;
+    w(
+        "report.json",
+        serde_json::to_string_pretty(report)?.as_bytes(),
+    )?;
+    // figures
+    let receivers = survey.receivers();
+    let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
+    let decor = SectionDecor {
+        title: format!(
+            "P-wave velocity (PINN), fast-marching check: RMS {:.2} ms, χ² {:.2}",
+            report.fmm_misfit.rms_ms, report.fmm_misfit.chi2
+        ),
+        surface: Some(&survey.surface),
+        receivers: &receivers,
+        sources: &sources,
+        covered: Some(covered),
+        footnote: Some("pale: no ray coverage (unconstrained)".into()),
+        ..Default::default()
+    };
+    figures::velocity_section(&out.join("velocity"), model, &decor)?;
+    let curves = shot_curves(survey, fmm_times);
+    figures::traveltime_curves(
+        &out.join("traveltimes"),
+        "First arrivals: picks and fast-marching times through the PINN model",
+        &curves,
+        job.settings.sigma_ms,
+    )?;
+    let h = &outcome.history;
+    let series = vec![
+        (
+            "data ((T−t)/σ)²".to_string(),
+            h.iter().map(|s| (s.step as f64, s.data)).collect(),
+        ),
+        (
+            "eikonal (v|∇T|−1)²".to_string(),
+            h.iter().map(|s| (s.step as f64, s.eikonal)).collect(),
+        ),
+        (
+            "regulariser".to_string(),
+            h.iter().map(|s| (s.step as f64, s.regulariser)).collect(),
+        ),
+    ];
+    figures::loss_curves(&out.join("loss"), "PINN training: loss terms", &series)?;
+    w("report.html", html_report(report).as_bytes())?;
+    Ok(())
+}
+
+/// Per-shot (x, observed, predicted) in ms, sorted by receiver x.
+pub fn shot_curves(survey: &Survey, predicted: &[f64]) -> Vec<ShotCurve> {
+    survey
+        .shots
+        .iter()
+        .map(|s| {
+            let mut pts: Vec<(f64, f64, f64)> = s
+                .picks
+                .iter()
+                .map(|&k| {
+                    (
+                        survey.picks[k].receiver.x,
+                        survey.picks[k].time * 1e3,
+                        predicted[k] * 1e3,
+                    )
+                })
+                .collect();
+            pts.sort_by(|a, b| a.0.total_cmp(&b.0));
+            ShotCurve {
+                shot: s.id.clone(),
+                source_x: s.source.x,
+                points: pts,
+            }
+        })
+        .collect()
+}
+
+fn html_escape(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+}
+
+fn html_report(r: &InvertReport) -> String {
+    let row = |k: &str, v: String| {
+        format!(
+            "<tr><th>{}</th><td>{}</td></tr>\n",
+            html_escape(k),
+            html_escape(&v)
+        )
+    };
+    let mut t = String::new();
+    t += &row("picks file", r.picks.clone());
+    t += &row("shots / picks", format!("{} / {}", r.n_shots, r.n_picks));
+    t += &row("method", r.method.to_string());
+    t += &row(
+        "fast-marching check: RMS, χ²",
+        format!("{:.3} ms, {:.3}", r.fmm_misfit.rms_ms, r.fmm_misfit.chi2),
+    );
+    t += &row(
+        "network's own times: RMS, χ²",
+        format!(
+            "{:.3} ms, {:.3}",
+            r.network_misfit.rms_ms, r.network_misfit.chi2
+        ),
+    );
+    t += &row("eikonal residual RMS", format!("{:.4}", r.eikonal_rms));
+    t += &row(
+        "starting model",
+        format!(
+            "v = {:.0} m/s + {:.1}/s × depth (RMS {:.2} ms)",
+            r.geometry.start.model.v0,
+            r.geometry.start.model.g,
+            r.geometry.start.rms_s * 1e3
+        ),
+    );
+    t += &row(
+        "model depth / grid cell",
+        format!("{:.1} m / {} m", r.geometry.depth_m, r.geometry.cell_m),
+    );
+    t += &row(
+        "ray-covered share of the section",
+        format!("{:.0} %", 100.0 * r.covered_fraction),
+    );
+    t += &row("steps, stop", format!("{} ({})", r.steps, r.stop));
+    t += &row(
+        "seed / run time",
+        format!("{} / {:.1} s", r.seed, r.run_seconds),
+    );
+    let warn = if r.warnings.is_empty() {
+        String::new()
+    } else {
+        format!(
+            "<h2>Warnings</h2><ul>{}</ul>",
+            r.warnings
+                .iter()
+                .map(|w| format!("<li>{}</li>", html_escape(w)))
+                .collect::<String>()
+        )
+    };
+    format!(
+        "<!doctype html><html><head><meta charset=\"utf-8\"><title>slowfield inversion</title>\
+<style>body{{font-family:sans-serif;max-width:1450px;margin:1em auto;color:#222}}th{{text-align:left;padding-right:1.5em}}\
+.caution{{border:2px solid #b33;padding:.6em 1em;background:#fff4f4}}img{{max-width:100%}}</style></head><body>\
+<h1>Velocity section from first-arrival picks</h1>\
+<p class=\"caution\"><b>Caution.</b> {}</p><table>{}</table>{}\
+<h2>Velocity section</h2><img src=\"velocity.png\" alt=\"velocity section\">\
+<p>Depth to {:.0} m/s where the rays reach it: <code>interface-depth.csv</code>.</p>\
+<h2>Travel times</h2><img src=\"traveltimes.png\" alt=\"travel-time curves\">\
+<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">\
+<p>Files: velocity.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin.</p></body></html>\n",
+        html_escape(r.caution),
+        t,
+        warn,
+        r.interface.velocity_mps
+    )
+}
+
+/// Prints the end-of-run summary.
+pub fn summary_text(r: &InvertReport, out: &Path) -> String {
+    format!(
+        "{} picks, {} shots; {} steps ({}) in {:.1} s\n\
+         fast-marching check through the PINN velocity: RMS {:.3} ms, chi2 {:.3}\n\
+         network's own times: RMS {:.3} ms, chi2 {:.3}; eikonal residual RMS {:.4}\n\
+         rays cover {:.0} % of the section; results in {}\n",
+        r.n_picks,
+        r.n_shots,
+        r.steps,
+        r.stop,
+        r.run_seconds,
+        r.fmm_misfit.rms_ms,
+        r.fmm_misfit.chi2,
+        r.network_misfit.rms_ms,
+        r.network_misfit.chi2,
+        r.eikonal_rms,
+        100.0 * r.covered_fraction,
+        out.display()
+    )
+}
+
+/// True when stderr is a terminal (progress bars only there).
+pub fn interactive() -> bool {
+    std::io::stderr().is_terminal()
+}

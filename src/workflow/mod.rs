@@ -1,0 +1,286 @@
+//! The jobs behind the commands: read the inputs, call the solvers, write the results.
+
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+use anyhow::Context;
+
+use crate::cli::{CheckArgs, DemoArgs, ForwardArgs, InvertArgs, RegFlag};
+use crate::settings::RunSettings;
+
+pub mod invert;
+use crate::output::write_atomic;
+use crate::qc::{self, QcSettings};
+use crate::survey::{self, Survey};
+
+/// Exit code for input that cannot be used.
+pub const EXIT_UNUSABLE: u8 = 1;
+
+fn load_survey(picks: &Path, surface: Option<&Path>) -> Result<Survey, crate::error::InputErrors> {
+    match surface {
+        Some(s) => survey::read_picks_with_surface(picks, s),
+        None => survey::read_picks(picks),
+    }
+}
+
+/// `slowfield check`.
+pub fn check(a: &CheckArgs) -> anyhow::Result<ExitCode> {
+    for (name, v) in [
+        ("--reciprocal-ms", a.reciprocal_ms),
+        ("--reciprocal-percent", a.reciprocal_percent),
+        ("--position-tol", a.position_tol),
+        ("--outlier-ms", a.outlier_ms),
+    ] {
+        if !(v.is_finite() && v >= 0.0) {
+            anyhow::bail!("{name} must be a non-negative number, got {v}");
+        }
+    }
+    let survey = match load_survey(&a.picks, a.surface.as_deref()) {
+        Ok(s) => s,
+        Err(e) => {
+            if a.json {
+                let msgs: Vec<String> = e.0.iter().map(|e| e.to_string()).collect();
+                println!("{}", serde_json::json!({ "usable": false, "errors": msgs }));
+            }
+            eprintln!("{e}");
+            eprintln!("the picks cannot be used until these problems are fixed");
+            return Ok(ExitCode::from(EXIT_UNUSABLE));
+        }
+    };
+    let settings = QcSettings {
+        position_tol_m: a.position_tol,
+        reciprocal_abs_s: a.reciprocal_ms * 1e-3,
+        reciprocal_rel: a.reciprocal_percent / 100.0,
+        outlier_floor_s: a.outlier_ms * 1e-3,
+        ..QcSettings::default()
+    };
+    let report = qc::check(&survey, &settings);
+    if a.json {
+        let mut v = serde_json::to_value(&report)?;
+        v["usable"] = serde_json::Value::Bool(true);
+        println!("{}", serde_json::to_string_pretty(&v)?);
+    } else {
+        print!("{}", report.to_text(&a.picks.display().to_string()));
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Writes picks (and optionally a second time column) in the picks format.
+pub fn picks_csv(survey: &Survey, times: &[f64], sigma: Option<&[f64]>, residuals: bool) -> String {
+    use std::fmt::Write;
+    let mut s = String::with_capacity(64 * times.len());
+    s.push_str("shot,source_x,source_z,receiver_x,receiver_z,time_ms");
+    if sigma.is_some() {
+        s.push_str(",sigma_ms");
+    }
+    if residuals {
+        s.push_str(",observed_ms,residual_ms");
+    }
+    s.push('\n');
+    for (k, p) in survey.picks.iter().enumerate() {
+        let _ = write!(
+            s,
+            "{},{},{},{},{},{:.4}",
+            p.shot,
+            p.source.x,
+            p.source.z,
+            p.receiver.x,
+            p.receiver.z,
+            times[k] * 1e3
+        );
+        if let Some(sg) = sigma {
+            let _ = write!(s, ",{:.4}", sg[k] * 1e3);
+        }
+        if residuals {
+            let _ = write!(s, ",{:.4},{:.4}", p.time * 1e3, (p.time - times[k]) * 1e3);
+        }
+        s.push('\n');
+    }
+    s
+}
+
+/// `slowfield forward`.
+pub fn forward(a: &ForwardArgs) -> anyhow::Result<ExitCode> {
+    use rand::SeedableRng;
+    use rand_distr::Distribution;
+    if let Some(n) = a.noise_ms {
+        if !(n.is_finite() && n > 0.0) {
+            anyhow::bail!("--noise-ms must be a positive number of milliseconds, got {n}");
+        }
+    }
+    let survey = load_survey(&a.picks, a.surface.as_deref()).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let model = crate::model::VelocityGrid::read(&a.model).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let cell = match a.cell {
+        Some(c) => c,
+        None => crate::verify::default_cell(&model.spec, &survey),
+    };
+    let grid = crate::verify::solver_grid(&model, &survey.surface, cell)
+        .map_err(|e| anyhow::anyhow!("{}: {e}", a.model.display()))?;
+    let opts = crate::eikonal::FmmOptions {
+        order: if a.first_order {
+            crate::eikonal::Order::First
+        } else {
+            crate::eikonal::Order::Second
+        },
+    };
+    let mut times = crate::verify::predict(&survey, &grid, &opts)
+        .map_err(|e| anyhow::anyhow!("{} with {}: {e}", a.model.display(), a.picks.display()))?;
+    let sigma = a.noise_ms.map(|n| {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(a.seed);
+        let normal = rand_distr::Normal::new(0.0, n * 1e-3).expect("positive sigma");
+        for t in times.iter_mut() {
+            // keep times physical: a noisy time never goes below zero
+            *t = (*t + normal.sample(&mut rng)).max(0.0);
+        }
+        vec![n * 1e-3; times.len()]
+    });
+    let text = picks_csv(&survey, &times, sigma.as_deref(), a.residuals);
+    write_atomic(&a.output, text.as_bytes())
+        .with_context(|| format!("cannot write {}", a.output.display()))?;
+    eprintln!(
+        "wrote {} times for {} shots to {} (solver grid {}×{} at {} m{})",
+        times.len(),
+        survey.shots.len(),
+        a.output.display(),
+        grid.spec.nx,
+        grid.spec.nz,
+        cell,
+        a.noise_ms.map_or(String::new(), |n| format!(
+            ", noise σ = {n} ms, seed {}",
+            a.seed
+        ))
+    );
+    Ok(ExitCode::SUCCESS)
+}
+
+/// The settings of `invert`: defaults, then the file (or the resumed run's), then flags.
+pub fn invert_settings(
+    a: &InvertArgs,
+) -> anyhow::Result<(RunSettings, Option<crate::pinn::Checkpoint>)> {
+    let mut s = match &a.config {
+        Some(p) => RunSettings::read(p).map_err(|e| anyhow::anyhow!("{e}"))?,
+        None => RunSettings::default(),
+    };
+    let mut resume = None;
+    if let Some(dir) = &a.resume {
+        let cp_path = dir.join(invert::CHECKPOINT);
+        let bytes = std::fs::read(&cp_path).with_context(|| {
+            format!(
+                "cannot read the checkpoint {}: resume from the output folder of an earlier run",
+                cp_path.display()
+            )
+        })?;
+        let cp = crate::pinn::Checkpoint::from_bytes(&bytes)
+            .map_err(|e| anyhow::anyhow!("{}: {e}", cp_path.display()))?;
+        if a.config.is_none() {
+            let st = dir.join("settings.toml");
+            if st.exists() {
+                s = RunSettings::read(&st).map_err(|e| anyhow::anyhow!("{e}"))?;
+            }
+        }
+        s.pinn = serde_json::from_str(cp.settings_json()).with_context(|| {
+            format!(
+                "{}: the checkpoint's settings are unreadable",
+                cp_path.display()
+            )
+        })?;
+        resume = Some(cp);
+    }
+    if let Some(d) = a.dim {
+        s.pinn.dim = d;
+    }
+    if let Some(v) = a.steps {
+        s.pinn.steps = v;
+    }
+    if let Some(v) = a.seed {
+        s.pinn.seed = v;
+    }
+    if let Some(v) = a.sigma_ms {
+        s.sigma_ms = v;
+    }
+    if let Some(v) = a.v_min {
+        s.pinn.v_min = v;
+    }
+    if let Some(v) = a.v_max {
+        s.pinn.v_max = v;
+    }
+    if let Some(r) = a.regulariser {
+        s.pinn.regulariser = match r {
+            RegFlag::Smoothness => crate::pinn::Regulariser::Smoothness,
+            RegFlag::TotalVariation => crate::pinn::Regulariser::TotalVariation,
+        };
+    }
+    if let Some(t) = a.threads {
+        s.pinn.threads = t;
+    }
+    Ok((s, resume))
+}
+
+/// `slowfield invert`.
+pub fn invert(a: &InvertArgs) -> anyhow::Result<ExitCode> {
+    let (settings, resume) = invert_settings(a)?;
+    settings
+        .validate()
+        .map_err(|e| anyhow::anyhow!("invalid setting: {e}"))?;
+    let survey = match load_survey(&a.picks, a.surface.as_deref()) {
+        Ok(s) => s,
+        Err(e) => {
+            eprintln!("{e}");
+            eprintln!("the picks cannot be used until these problems are fixed");
+            return Ok(ExitCode::from(EXIT_UNUSABLE));
+        }
+    };
+    for w in &survey.warnings {
+        eprintln!("warning: {w}");
+    }
+    let job = invert::InvertJob {
+        picks_path: a.picks.clone(),
+        out: a.output.clone(),
+        settings,
+        resume,
+        progress: invert::interactive(),
+    };
+    let report = invert::run(&survey, &job)?;
+    print!("{}", invert::summary_text(&report, &a.output));
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Where the shipped demo picks live: `./demo-picks`, else beside the crate's sources.
+pub fn demo_dir() -> PathBuf {
+    let here = PathBuf::from("demo-picks");
+    if here.join("picks.csv").exists() {
+        here
+    } else {
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-picks")
+    }
+}
+
+/// `slowfield demo`.
+pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
+    let dir = demo_dir();
+    let picks = dir.join("picks.csv");
+    let out = &a.output;
+    std::fs::create_dir_all(out)
+        .with_context(|| format!("cannot create the output folder {}", out.display()))?;
+    let tty = std::io::stderr().is_terminal();
+    let say = |m: &str| {
+        if tty {
+            eprintln!("{m}");
+        } else {
+            eprintln!("demo: {m}");
+        }
+    };
+    say(&format!("1/1 checking the picks in {}", picks.display()));
+    let survey = survey::read_picks(&picks).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let report = qc::check(&survey, &QcSettings::default());
+    let text = report.to_text(&picks.display().to_string());
+    print!("{text}");
+    write_atomic(&out.join("check.txt"), text.as_bytes())?;
+    write_atomic(
+        &out.join("check.json"),
+        serde_json::to_string_pretty(&report)?.as_bytes(),
+    )?;
+    say(&format!("wrote {}", out.join("check.txt").display()));
+    Ok(ExitCode::SUCCESS)
+}
