@@ -24,9 +24,16 @@ fn fixture() -> (GridSpec, Point, Vec<(String, Model)>) {
         nx: g["nx"].as_u64().unwrap() as usize,
         nz: g["nz"].as_u64().unwrap() as usize,
     };
-    let src = Point::new(j["source"][0].as_f64().unwrap(), j["source"][1].as_f64().unwrap());
+    let src = Point::new(
+        j["source"][0].as_f64().unwrap(),
+        j["source"][1].as_f64().unwrap(),
+    );
     let arr = |v: &serde_json::Value| -> Vec<f64> {
-        v.as_array().unwrap().iter().map(|a| a.as_f64().unwrap()).collect()
+        v.as_array()
+            .unwrap()
+            .iter()
+            .map(|a| a.as_f64().unwrap())
+            .collect()
     };
     let models = j["models"]
         .as_array()
@@ -65,11 +72,17 @@ fn our_times(spec: &GridSpec, src: Point, name: &str, fix_v: &[f64]) -> Vec<f64>
             let k = spec.idx(i, j);
             let v = velocity(name, spec.x(i), spec.z(j));
             // the fixture stores 9 significant digits
-            assert!((v - fix_v[k]).abs() <= 1e-8 * v, "{name} node {k}: {v} vs {}", fix_v[k]);
+            assert!(
+                (v - fix_v[k]).abs() <= 1e-8 * v,
+                "{name} node {k}: {v} vs {}",
+                fix_v[k]
+            );
             s[k] = 1.0 / v;
         }
     }
-    solve(spec, &s, src, &FmmOptions::default()).unwrap().into_times()
+    solve(spec, &s, src, &FmmOptions::default())
+        .unwrap()
+        .into_times()
 }
 
 fn far(spec: &GridSpec, src: Point, k: usize) -> bool {
