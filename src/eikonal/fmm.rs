@@ -256,8 +256,8 @@ impl Workspace {
                         update(field, st, slowness[n], n, ni, nj, idx, idz, second)
                     {
                         // The value from the latest set of accepted neighbours replaces
-                        // the old one (it may be larger: the zone near the source guesses
-                        // a missing axis); stale heap entries are skipped on pop.
+                        // the old one (it may be larger: a missing axis read as
+                        // `∂τ/∂a = 0` is only a guess); stale heap entries are skipped.
                         if tn != field.time[n] {
                             field.time[n] = tn;
                             field.tau[n] = tau;
