@@ -165,7 +165,7 @@ fn input_errors() {
     let f = solve(&spec, &s, src, &o).unwrap();
     assert_eq!(f.times()[19], f64::INFINITY);
     assert_eq!(f.times()[18], f64::INFINITY);
-    let e = solve(&spec, &vec![f64::INFINITY; 20], src, &o).unwrap_err();
+    let e = solve(&spec, &[f64::INFINITY; 20], src, &o).unwrap_err();
     assert_eq!(e, EikonalError::AllAir);
     let e = solve(&spec, &good, Point::new(-1.0, 0.0), &o).unwrap_err();
     assert!(matches!(

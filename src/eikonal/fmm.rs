@@ -64,7 +64,7 @@ impl TimeField {
     #[inline]
     fn t0(&self, x: f64, z: f64) -> (f64, f64, f64) {
         let (rx, rz) = (x - self.source.x, z - self.source.z);
-        let r = rx.hypot(rz);
+        let r = (rx * rx + rz * rz).sqrt();
         if r > 0.0 {
             (self.s_src * r, self.s_src * rx / r, self.s_src * rz / r)
         } else {
@@ -252,11 +252,12 @@ impl Workspace {
             let (i, j) = (k % nx, k / nx);
             let mut visit = |n: usize, ni: usize, nj: usize, st: &mut [u8], heap: &mut MinHeap| {
                 if st[n] == FAR || st[n] == TRIAL {
-                    if let Some(tau) = update(field, st, slowness[n], n, ni, nj, idx, idz, second) {
-                        let tn = tau * field.t0(spec.x(ni), spec.z(nj)).0;
+                    if let Some((tau, tn)) =
+                        update(field, st, slowness[n], n, ni, nj, idx, idz, second)
+                    {
                         // The value from the latest set of accepted neighbours replaces
-                        // the old one (it may be larger: the zone near the source guesses
-                        // a missing axis); stale heap entries are skipped on pop.
+                        // the old one (it may be larger: a missing axis read as
+                        // `∂τ/∂a = 0` is only a guess); stale heap entries are skipped.
                         if tn != field.time[n] {
                             field.time[n] = tn;
                             field.tau[n] = tau;
@@ -361,7 +362,7 @@ fn best_tau(ax: Option<(f64, f64, f64)>, az: Option<(f64, f64, f64)>, s: f64) ->
     best
 }
 
-/// New `τ` at node `n = (i, j)` from its accepted neighbours.
+/// New `(τ, T)` at node `n = (i, j)` from its accepted neighbours.
 #[inline(always)]
 #[allow(clippy::too_many_arguments)]
 fn update(
@@ -374,7 +375,7 @@ fn update(
     idx: f64,
     idz: f64,
     second: bool,
-) -> Option<f64> {
+) -> Option<(f64, f64)> {
     let spec = &f.spec;
     let (t0, px, pz) = f.t0(spec.x(i), spec.z(j));
     let mut ax = axis(f, st, n, i, spec.nx, 1, idx, px, t0);
@@ -433,5 +434,5 @@ fn update(
             s,
         );
     }
-    tau.is_finite().then_some(tau)
+    tau.is_finite().then_some((tau, tau * t0))
 }

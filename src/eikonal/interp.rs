@@ -106,7 +106,7 @@ fn solve3(m: [[f64; 3]; 3], r: [f64; 3]) -> Option<[f64; 3]> {
     };
     let d = det(m);
     let scale = m[0][0] * m[1][1] * m[2][2];
-    if !(d.abs() > 1e-9 * scale) {
+    if d.is_nan() || d.abs() <= 1e-9 * scale {
         return None;
     }
     let mut out = [0.0; 3];
