@@ -18,7 +18,7 @@ pub struct RunSettings {
     /// (default: the smaller of 0.5 m and a quarter of the receiver spacing).
     pub cell_m: Option<f64>,
     /// Depth of the model below the lowest station, m (default: the deepest turning
-    /// ray of the starting model plus 30 %, at least 10 m).
+    /// ray of the starting model × 1.5 + 3 m, at least 10 m).
     pub depth_m: Option<f64>,
     /// Velocity whose depth is mapped along the line (e.g. the top of rock), m/s.
     pub interface_mps: f64,

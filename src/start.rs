@@ -10,36 +10,76 @@ use serde::Serialize;
 
 use crate::survey::Survey;
 
-/// A 1-D ground whose velocity grows linearly with depth below the surface.
+/// A 1-D ground whose velocity grows linearly with depth below the surface, down to
+/// a half-space of velocity `v_cap` (the weathered cover over a refractor).
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, serde::Deserialize)]
 pub struct LinearStart {
     /// Velocity at the surface, m/s.
     pub v0: f64,
     /// Increase of velocity with depth, 1/s (m/s per m).
     pub g: f64,
+    /// Velocity of the half-space, reached at depth `(v_cap − v0)/g`, m/s
+    /// (infinite: the gradient goes on).
+    pub v_cap: f64,
 }
 
 impl LinearStart {
     /// Velocity at `depth` below the surface, m/s.
     pub fn velocity(&self, depth: f64) -> f64 {
-        self.v0 + self.g * depth.max(0.0)
+        (self.v0 + self.g * depth.max(0.0)).min(self.v_cap)
     }
 
-    /// First-arrival time between two surface points `x` apart, s.
-    pub fn time(&self, x: f64) -> f64 {
+    /// Depth of the top of the half-space, m (infinite without one).
+    pub fn cap_depth(&self) -> f64 {
+        if self.v_cap.is_finite() && self.g > 1e-9 {
+            (self.v_cap - self.v0).max(0.0) / self.g
+        } else {
+            f64::INFINITY
+        }
+    }
+
+    /// Time of the wave that dives through the gradient alone, `(2/g)·asinh(g·x/(2·v0))`.
+    fn diving_time(&self, x: f64) -> f64 {
         if self.g < 1e-9 {
             return x / self.v0;
         }
         2.0 / self.g * (self.g * x / (2.0 * self.v0)).asinh()
     }
 
-    /// Depth at which the ray between two surface points `x` apart turns, m.
-    pub fn turning_depth(&self, x: f64) -> f64 {
+    /// First-arrival time between two surface points `x` apart, s: the diving wave
+    /// while its ray turns above the half-space, the head wave along the half-space's
+    /// top beyond. Head-wave intercept for a linear gradient over a half-space:
+    /// `(2/g)·(artanh(u0) − u0)`, `u0 = sqrt(1 − v0²/v_cap²)` (from the delay-time
+    /// integral `2∫ sqrt(1/v² − 1/v_cap²) dz`, Telford et al. 1990 §4.3, worked here for
+    /// `v = v0 + g·z`).
+    pub fn time(&self, x: f64) -> f64 {
+        let d = self.diving_time(x);
+        if !self.v_cap.is_finite() || self.g < 1e-9 || self.v_cap <= self.v0 {
+            return if self.v_cap <= self.v0 {
+                x / self.v_cap.max(self.v0)
+            } else {
+                d
+            };
+        }
+        if self.turning_depth_unbounded(x) <= self.cap_depth() {
+            return d;
+        }
+        let u0 = (1.0 - (self.v0 / self.v_cap).powi(2)).sqrt();
+        x / self.v_cap + 2.0 / self.g * (u0.atanh() - u0)
+    }
+
+    fn turning_depth_unbounded(&self, x: f64) -> f64 {
         if self.g < 1e-9 {
             return 0.0;
         }
         let a = self.g * x / (2.0 * self.v0);
         self.v0 / self.g * ((1.0 + a * a).sqrt() - 1.0)
+    }
+
+    /// Deepest point of the first-arrival ray between two surface points `x` apart, m
+    /// (the half-space's top for head waves).
+    pub fn turning_depth(&self, x: f64) -> f64 {
+        self.turning_depth_unbounded(x).min(self.cap_depth())
     }
 }
 
@@ -54,8 +94,9 @@ pub struct StartFit {
     pub deepest_turning_m: f64,
 }
 
-/// Fits `v = v0 + g·depth` to every pick by weighted least squares, searching
-/// `v0` in 50–6000 m/s and `g` in 0–400 1/s on a grid refined around the best node.
+/// Fits `v = min(v0 + g·depth, v_cap)` to every pick by weighted least squares,
+/// searching `v0` and `v_cap` in 50–16000 m/s and `g` in 0–400 1/s on a grid refined
+/// around the best node.
 ///
 /// The offset is the straight source–receiver distance, so gentle topography is
 /// absorbed; `sigma` is the default uncertainty of picks without their own, s.
@@ -74,51 +115,68 @@ pub fn fit_linear(survey: &Survey, sigma: f64) -> StartFit {
             })
             .sum()
     };
-    // coarse grid: log-spaced v0, linear g
-    let (mut lv, mut g) = (0.0f64, 0.0f64);
-    let mut best = f64::INFINITY;
+    // coarse grid: log-spaced v0 and v_cap, quadratic spacing of g
     let (lv_lo, lv_hi) = (50f64.ln(), 6000f64.ln());
-    for a in 0..=60 {
-        for b in 0..=60 {
-            let cand_lv = lv_lo + (lv_hi - lv_lo) * a as f64 / 60.0;
-            let cand_g = 400.0 * (b as f64 / 60.0).powi(2);
-            let c = cost(&LinearStart {
-                v0: cand_lv.exp(),
-                g: cand_g,
-            });
-            if c < best {
-                best = c;
-                lv = cand_lv;
-                g = cand_g;
+    let mk = |p: [f64; 3]| LinearStart {
+        v0: p[0].exp(),
+        g: p[1],
+        v_cap: p[2].exp(),
+    };
+    let mut best = f64::INFINITY;
+    let mut bp = [0.0; 3];
+    for a in 0..=30 {
+        for b in 0..=30 {
+            for c in 0..=30 {
+                let p = [
+                    lv_lo + (lv_hi - lv_lo) * a as f64 / 30.0,
+                    400.0 * (b as f64 / 30.0).powi(2),
+                    lv_lo + (lv_hi - lv_lo + 1.0) * c as f64 / 30.0,
+                ];
+                if p[2] < p[0] {
+                    continue;
+                }
+                let cst = cost(&mk(p));
+                if cst < best {
+                    best = cst;
+                    bp = p;
+                }
             }
         }
     }
-    // refine: shrink a local box around the best
-    let (mut dlv, mut dg) = ((lv_hi - lv_lo) / 60.0, 400.0 / 30.0);
-    for _ in 0..40 {
+    // refine: a shrinking local search around the best
+    let mut step = [(lv_hi - lv_lo) / 30.0, 400.0 / 30.0, (lv_hi - lv_lo) / 30.0];
+    for _ in 0..400 {
+        if step[1] < 1e-7 {
+            break;
+        }
         let mut moved = false;
-        for a in -2..=2 {
-            for b in -2..=2 {
-                let cand_lv = (lv + a as f64 * dlv * 0.5).clamp(lv_lo, lv_hi);
-                let cand_g = (g + b as f64 * dg * 0.5).clamp(0.0, 400.0);
-                let c = cost(&LinearStart {
-                    v0: cand_lv.exp(),
-                    g: cand_g,
-                });
-                if c < best {
-                    best = c;
-                    lv = cand_lv;
-                    g = cand_g;
-                    moved = true;
+        for a in -1..=1 {
+            for b in -1..=1 {
+                for c in -1..=1 {
+                    let p = [
+                        (bp[0] + a as f64 * step[0]).clamp(lv_lo, lv_hi),
+                        (bp[1] + b as f64 * step[1]).clamp(0.0, 400.0),
+                        (bp[2] + c as f64 * step[2]).clamp(lv_lo, lv_hi + 1.0),
+                    ];
+                    if p[2] < p[0] {
+                        continue;
+                    }
+                    let cst = cost(&mk(p));
+                    if cst < best {
+                        best = cst;
+                        bp = p;
+                        moved = true;
+                    }
                 }
             }
         }
         if !moved {
-            dlv *= 0.5;
-            dg *= 0.5;
+            for st in step.iter_mut() {
+                *st *= 0.5;
+            }
         }
     }
-    let model = LinearStart { v0: lv.exp(), g };
+    let model = mk(bp);
     let n = data.len().max(1) as f64;
     let rms = (data
         .iter()
@@ -141,7 +199,11 @@ mod tests {
 
     #[test]
     fn recovers_the_gradient_it_was_made_from() {
-        let truth = LinearStart { v0: 420.0, g: 35.0 };
+        let truth = LinearStart {
+            v0: 420.0,
+            g: 35.0,
+            v_cap: f64::INFINITY,
+        };
         let mut picks = Vec::new();
         for s in [0.0, 50.0, 100.0] {
             for r in 0..51 {
@@ -164,14 +226,86 @@ mod tests {
         assert!((fit.model.v0 - 420.0).abs() < 1.0, "{:?}", fit);
         assert!((fit.model.g - 35.0).abs() < 0.2, "{:?}", fit);
         assert!(fit.rms_s < 1e-5);
+        assert!(
+            fit.model.cap_depth() > 25.0,
+            "no half-space within the rays' reach: {fit:?}"
+        );
         // the 100 m offset turns at (v0/g)(sqrt(1+(g·100/(2·v0))²)−1) = 25.6 m for the truth
         assert!((fit.deepest_turning_m - truth.turning_depth(100.0)).abs() < 0.3);
+    }
+
+    /// Beyond the critical distance the time is `x/v_cap` plus the delay-time integral
+    /// `2∫ sqrt(1/v² − 1/v_cap²) dz` (Telford, Geldart & Sheriff 1990, §4.3).
+    #[test]
+    fn capped_gradient_tends_to_the_two_layer_formula() {
+        // the closed-form intercept against the delay-time integral done numerically
+        let m = LinearStart {
+            v0: 450.0,
+            g: 40.0,
+            v_cap: 2000.0,
+        };
+        let h = m.cap_depth();
+        let n = 200_000;
+        let mut integral = 0.0;
+        for k in 0..n {
+            let z = (k as f64 + 0.5) * h / n as f64;
+            let v = m.velocity(z);
+            integral += (1.0 / (v * v) - 1.0 / (2000.0f64 * 2000.0)).sqrt() * h / n as f64;
+        }
+        let x = 200.0;
+        assert!(
+            (m.time(x) - (x / 2000.0 + 2.0 * integral)).abs() < 1e-7,
+            "{} vs {}",
+            m.time(x),
+            x / 2000.0 + 2.0 * integral
+        );
+        // and near offsets are the diving wave of the gradient
+        assert!(
+            (m.time(5.0) - crate::analytic::gradient_time(450.0, 450.0, 40.0, 5.0)).abs() < 1e-12
+        );
+    }
+
+    #[test]
+    fn recovers_a_weathered_layer_over_a_refractor() {
+        let truth = LinearStart {
+            v0: 450.0,
+            g: 40.0,
+            v_cap: 2200.0,
+        };
+        let mut picks = Vec::new();
+        for s in [0.0, 60.0, 120.0] {
+            for r in 0..61 {
+                let rx = r as f64 * 2.0;
+                if (rx - s).abs() < 0.1 {
+                    continue;
+                }
+                picks.push(Pick {
+                    shot: format!("{s}"),
+                    source: Point::new(s, 0.0),
+                    receiver: Point::new(rx, 0.0),
+                    time: truth.time((rx - s).abs()),
+                    sigma: None,
+                    line: 0,
+                });
+            }
+        }
+        let fit = fit_linear(&Survey::from_picks(picks).unwrap(), 5e-4);
+        assert!((fit.model.v0 - 450.0).abs() < 5.0, "{fit:?}");
+        assert!((fit.model.v_cap - 2200.0).abs() < 20.0, "{fit:?}");
+        assert!(
+            (fit.model.cap_depth() - truth.cap_depth()).abs() < 0.3,
+            "{fit:?}"
+        );
     }
 
     #[test]
     fn time_agrees_with_the_general_gradient_formula() {
         // arccosh form of Fomel, Luo & Zhao (2009) for two surface points, v_s = v_r = v0
-        let m = LinearStart { v0: 500.0, g: 20.0 };
+        let m = LinearStart {
+            v0: 500.0,
+            g: 20.0,
+            v_cap: f64::INFINITY,
+        };
         for x in [1.0, 10.0, 60.0] {
             let t = crate::analytic::gradient_time(500.0, 500.0, 20.0, x);
             assert!((m.time(x) - t).abs() < 1e-12);

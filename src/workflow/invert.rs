@@ -57,7 +57,7 @@ pub fn geometry(survey: &Survey, s: &RunSettings) -> Geometry {
     let start = fit_linear(survey, s.sigma_ms * 1e-3);
     let depth = s
         .depth_m
-        .unwrap_or_else(|| (1.3 * start.deepest_turning_m).max(10.0).ceil());
+        .unwrap_or_else(|| (1.5 * start.deepest_turning_m + 3.0).max(10.0).ceil());
     let (x0, x1) = survey.x_range();
     let cell = s.cell_m.unwrap_or_else(|| {
         let g = GridSpec {
@@ -122,10 +122,16 @@ pub fn pinn_inputs(
         z_bottom: geo.grid.z0,
         surface: survey.surface.nodes.iter().map(|p| [p.x, p.z]).collect(),
     };
-    let start = pinn::StartModel::Gradient {
-        v_top: geo.start.model.v0,
-        gradient: geo.start.model.g,
-    };
+    // The linear fit holds down to the deepest turning ray; below, no ray sees the
+    // ground, so the start keeps the velocity reached there instead of growing on.
+    let m = geo.start.model;
+    let v_cap = m
+        .velocity(geo.start.deepest_turning_m)
+        .min(0.9 * s.pinn.v_max);
+    let n = 24;
+    let depth_m: Vec<f64> = (0..=n).map(|k| geo.depth_m * k as f64 / n as f64).collect();
+    let velocity = depth_m.iter().map(|&d| m.velocity(d).min(v_cap)).collect();
+    let start = pinn::StartModel::Profile { depth_m, velocity };
     (picks, domain, start)
 }
 
@@ -198,6 +204,8 @@ pub struct InvertReport {
     pub eikonal_rms: f64,
     /// Share of model nodes crossed by at least one ray.
     pub covered_fraction: f64,
+    /// Rays the coverage could not trace (left out of it).
+    pub failed_rays: usize,
     /// Depth of the chosen velocity along the line: (x, depth below ground) where rays reach it.
     pub interface: InterfaceDepth,
     /// Loss history: first, best and last evaluated values.
@@ -297,8 +305,9 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
     let geo = geometry(survey, s);
     let (picks, domain, start) = pinn_inputs(survey, &geo, s);
     // the start model itself must lie within the bounds
-    let (v_lo, v_hi) = (geo.start.model.v0, geo.start.model.velocity(geo.depth_m));
-    if v_lo <= s.pinn.v_min || v_hi >= s.pinn.v_max {
+    let v_lo = geo.start.model.v0;
+    let v_hi = geo.start.model.velocity(geo.start.deepest_turning_m);
+    if v_lo <= s.pinn.v_min || v_lo >= s.pinn.v_max || v_hi <= s.pinn.v_min {
         bail!(
             "the starting model fitted to the picks runs from {v_lo:.0} to {v_hi:.0} m/s, outside the velocity bounds {}..{} m/s: widen v_min/v_max",
             s.pinn.v_min,
@@ -359,7 +368,7 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
     let sigma = s.sigma_ms * 1e-3;
     let fmm_misfit = verify::misfit(survey, &fmm_times, sigma);
     let network_misfit = verify::misfit(survey, &outcome.predicted_s, sigma);
-    let covered = coverage(survey, &model, &opts)?;
+    let (covered, failed_rays) = coverage(survey, &model, &opts)?;
     let covered_fraction = {
         let ground: Vec<usize> = (0..model.v.len()).filter(|&k| !model.is_air(k)).collect();
         ground.iter().filter(|&&k| covered[k]).count() as f64 / ground.len().max(1) as f64
@@ -384,6 +393,7 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
         network_misfit,
         eikonal_rms: outcome.eikonal_rms,
         covered_fraction,
+        failed_rays,
         interface,
         history: summary(&outcome.history),
         settings: s.clone(),
@@ -411,26 +421,45 @@ fn fill_surface_air(model: VelocityGrid, surface: &crate::survey::Surface) -> Ve
     })
 }
 
-/// Nodes crossed by at least one ray of the fast-marching check.
-fn coverage(survey: &Survey, model: &VelocityGrid, opts: &FmmOptions) -> anyhow::Result<Vec<bool>> {
+/// Nodes crossed by at least one ray of the fast-marching check, and the number of
+/// rays that could not be traced (left out of the coverage, counted in the report).
+fn coverage(
+    survey: &Survey,
+    model: &VelocityGrid,
+    opts: &FmmOptions,
+) -> anyhow::Result<(Vec<bool>, usize)> {
+    use rayon::prelude::*;
     let slowness = model.slowness();
-    let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
-    let receivers: Vec<Vec<Point>> = survey
+    let per_shot: Vec<Result<(Vec<f64>, usize), crate::eikonal::EikonalError>> = survey
         .shots
-        .iter()
-        .map(|s| s.picks.iter().map(|&k| survey.picks[k].receiver).collect())
+        .par_iter()
+        .map(|shot| {
+            let field = eikonal::solve(&model.spec, &slowness, shot.source, opts)?;
+            let mut cov = vec![0.0; model.spec.len()];
+            let mut failed = 0;
+            for &k in &shot.picks {
+                match eikonal::trace_ray(&field, survey.picks[k].receiver, &RayOptions::default()) {
+                    Ok(ray) => {
+                        for (node, w) in ray.weights {
+                            cov[node] += w;
+                        }
+                    }
+                    Err(_) => failed += 1,
+                }
+            }
+            Ok((cov, failed))
+        })
         .collect();
-    let rays = eikonal::solve_many_rays(
-        &model.spec,
-        &slowness,
-        &sources,
-        &receivers,
-        opts,
-        &RayOptions::default(),
-    )
-    .map_err(|e| anyhow::anyhow!("tracing rays for the coverage: {e}"))?;
-    let cov = eikonal::node_coverage(&model.spec, rays.iter().flatten().map(|r| &r.ray));
-    Ok(cov.iter().map(|&c| c > 0.0).collect())
+    let mut total = vec![0.0; model.spec.len()];
+    let mut failed = 0;
+    for r in per_shot {
+        let (c, f) = r.map_err(|e| anyhow::anyhow!("tracing rays for the coverage: {e}"))?;
+        for (t, v) in total.iter_mut().zip(c) {
+            *t += v;
+        }
+        failed += f;
+    }
+    Ok((total.iter().map(|&c| c > 0.0).collect(), failed))
 }
 
 fn write_outputs(
