@@ -42,8 +42,8 @@ fn main() {
             .unwrap_or_else(|| "demo-picks".into()),
     );
     std::fs::create_dir_all(&dir).unwrap();
-    // the model: 0.5 m nodes, x −8..128 m, z 70 m up to the ground
-    let (dx, x0, nx, z0, nz) = (0.5, -8.0, 273, 70.0, 69);
+    // the model: 0.5 m nodes, x −8..128 m, z 70 m up to 106 m, air nodes left out
+    let (dx, x0, nx, z0, nz) = (0.5, -8.0, 273, 70.0, 73);
     let mut m = String::from(
         "# true model of the invented demo site (experiments/demo_site.rs)\nx,z,velocity_mps\n",
     );

@@ -154,6 +154,9 @@ pub struct DemoArgs {
     /// Output folder.
     #[arg(short, long, default_value = "demo-out")]
     pub output: PathBuf,
+    /// Training steps at most (default: the run's default).
+    #[arg(long)]
+    pub steps: Option<usize>,
 }
 
 /// Runs a parsed command line; the exit code says whether the input was usable.

@@ -12,6 +12,7 @@
 
 pub mod analytic;
 pub mod cli;
+pub mod compare;
 pub mod eikonal;
 pub mod error;
 pub mod figures;

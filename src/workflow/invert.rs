@@ -150,7 +150,7 @@ impl Observer for Watch {
         }
         if let Some(b) = &self.bar {
             b.set_position(s.step as u64);
-            if s.step % 10 == 0 || s.chi2.is_some() {
+            if s.step.is_multiple_of(10) || s.chi2.is_some() {
                 b.set_message(format!(
                     "data {:.3}  eikonal {:.2e}  reg {:.2e}  rms {:.2} ms{}",
                     s.data,
@@ -459,7 +459,22 @@ fn coverage(
         }
         failed += f;
     }
-    Ok((total.iter().map(|&c| c > 0.0).collect(), failed))
+    // a node counts as covered when a ray passes within one cell of it: rays between
+    // neighbouring receivers skim the surface and would leave it speckled otherwise
+    let sp = &model.spec;
+    let hit: Vec<bool> = total.iter().map(|&c| c > 0.0).collect();
+    let mut covered = vec![false; sp.len()];
+    for j in 0..sp.nz {
+        for i in 0..sp.nx {
+            let k = sp.idx(i, j);
+            if model.is_air(k) {
+                continue;
+            }
+            covered[k] = (j.saturating_sub(1)..(j + 2).min(sp.nz))
+                .any(|jj| (i.saturating_sub(1)..(i + 2).min(sp.nx)).any(|ii| hit[sp.idx(ii, jj)]));
+        }
+    }
+    Ok((covered, failed))
 }
 
 fn write_outputs(
@@ -477,6 +492,7 @@ fn write_outputs(
             .with_context(|| format!("cannot write {}", out.join(name).display()))
     };
     w("velocity.csv", model.to_csv().as_bytes())?;
+    w("coverage.csv", coverage_csv(model, covered).as_bytes())?;
     let sigma = job.settings.sigma_ms * 1e-3;
     let mut fit = String::from(
         "shot,source_x,source_z,receiver_x,receiver_z,observed_ms,predicted_ms,residual_ms,sigma_ms,network_ms\n",
@@ -551,6 +567,43 @@ fn write_outputs(
     figures::loss_curves(&out.join("loss"), "PINN training: loss terms", &series)?;
     w("report.html", html_report(report).as_bytes())?;
     Ok(())
+}
+
+/// `x,z,covered` (1 where a ray of the fast-marching check passes within a cell).
+pub fn coverage_csv(model: &VelocityGrid, covered: &[bool]) -> String {
+    let s = &model.spec;
+    let mut out = String::from("x,z,covered\n");
+    for j in 0..s.nz {
+        for i in 0..s.nx {
+            let k = s.idx(i, j);
+            if !model.is_air(k) {
+                out.push_str(&format!("{:.4},{:.4},{}\n", s.x(i), s.z(j), u8::from(covered[k])));
+            }
+        }
+    }
+    out
+}
+
+/// Reads back a `coverage.csv` onto `model`'s nodes (missing nodes: not covered).
+pub fn read_coverage(path: &Path, model: &VelocityGrid) -> anyhow::Result<Vec<bool>> {
+    let text = std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
+    let s = &model.spec;
+    let mut cov = vec![false; s.len()];
+    for (n, line) in text.lines().enumerate().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        let parse = |k: usize| -> anyhow::Result<f64> {
+            f.get(k)
+                .and_then(|v| v.trim().parse().ok())
+                .with_context(|| format!("{}:{}: expected x,z,covered", path.display(), n + 1))
+        };
+        let (x, z, c) = (parse(0)?, parse(1)?, parse(2)?);
+        let i = ((x - s.x0) / s.dx).round();
+        let j = ((z - s.z0) / s.dz).round();
+        if i >= 0.0 && j >= 0.0 && (i as usize) < s.nx && (j as usize) < s.nz {
+            cov[s.idx(i as usize, j as usize)] = c > 0.5;
+        }
+    }
+    Ok(cov)
 }
 
 /// Per-shot (x, observed, predicted) in ms, sorted by receiver x.
@@ -653,7 +706,7 @@ fn html_report(r: &InvertReport) -> String {
 <p>Depth to {:.0} m/s where the rays reach it: <code>interface-depth.csv</code>.</p>\
 <h2>Travel times</h2><img src=\"traveltimes.png\" alt=\"travel-time curves\">\
 <h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">\
-<p>Files: velocity.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin.</p></body></html>\n",
+<p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin.</p></body></html>\n",
         html_escape(r.caution),
         t,
         warn,

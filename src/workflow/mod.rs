@@ -1,6 +1,5 @@
 //! The jobs behind the commands: read the inputs, call the solvers, write the results.
 
-use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
@@ -256,31 +255,71 @@ pub fn demo_dir() -> PathBuf {
     }
 }
 
-/// `slowfield demo`.
+/// `slowfield demo`: check the shipped picks, invert them with the PINN (checked by
+/// fast marching), and hold the result against the site's true model.
 pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
     let dir = demo_dir();
     let picks = dir.join("picks.csv");
     let out = &a.output;
-    std::fs::create_dir_all(out)
-        .with_context(|| format!("cannot create the output folder {}", out.display()))?;
-    let tty = std::io::stderr().is_terminal();
-    let say = |m: &str| {
-        if tty {
-            eprintln!("{m}");
-        } else {
-            eprintln!("demo: {m}");
-        }
-    };
-    say(&format!("1/1 checking the picks in {}", picks.display()));
+    let say = |m: &str| eprintln!("demo: {m}");
+    say(&format!("1/3 checking the picks in {}", picks.display()));
     let survey = survey::read_picks(&picks).map_err(|e| anyhow::anyhow!("{e}"))?;
     let report = qc::check(&survey, &QcSettings::default());
     let text = report.to_text(&picks.display().to_string());
     print!("{text}");
+    std::fs::create_dir_all(out)
+        .with_context(|| format!("cannot create the output folder {}", out.display()))?;
     write_atomic(&out.join("check.txt"), text.as_bytes())?;
-    write_atomic(
-        &out.join("check.json"),
-        serde_json::to_string_pretty(&report)?.as_bytes(),
-    )?;
-    say(&format!("wrote {}", out.join("check.txt").display()));
+    write_atomic(&out.join("check.json"), serde_json::to_string_pretty(&report)?.as_bytes())?;
+    let pinn_dir = out.join("pinn");
+    say(&format!("2/3 PINN inversion into {} (about half a minute on 2 cores)", pinn_dir.display()));
+    let mut settings = RunSettings::default();
+    if let Some(steps) = a.steps {
+        settings.pinn.steps = steps;
+    }
+    let job = invert::InvertJob {
+        picks_path: picks.clone(),
+        out: pinn_dir.clone(),
+        settings,
+        resume: None,
+        progress: invert::interactive(),
+    };
+    let inv = invert::run(&survey, &job)?;
+    print!("\n{}", invert::summary_text(&inv, &pinn_dir));
+    say("3/3 comparing with the site's true model (known only because the demo is synthetic)");
+    let truth = crate::model::VelocityGrid::read(&dir.join("true-model.csv")).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let est = crate::model::VelocityGrid::read(&pinn_dir.join("velocity.csv")).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let covered = invert::read_coverage(&pinn_dir.join("coverage.csv"), &est)?;
+    let err = crate::compare::against_truth(&est, &truth, &covered, &survey.surface, job.settings.interface_mps);
+    let cmp = format!(
+        "against the true model, ray-covered zone ({} nodes): median velocity error {:.1} %, 90th percentile {:.1} %\n\
+         depth to {:.0} m/s over {} columns: mean error {}, largest {}\n",
+        err.nodes,
+        err.median_pct,
+        err.p90_pct,
+        job.settings.interface_mps,
+        err.interface_columns,
+        err.interface_mean_abs_m.map_or("-".into(), |v| format!("{v:.2} m")),
+        err.interface_max_abs_m.map_or("-".into(), |v| format!("{v:.2} m")),
+    );
+    print!("{cmp}");
+    write_atomic(&out.join("truth-comparison.json"), serde_json::to_string_pretty(&err)?.as_bytes())?;
+    // the true section beside the estimate, on the same colour scale
+    let receivers = survey.receivers();
+    let sources: Vec<crate::survey::Point> = survey.shots.iter().map(|s| s.source).collect();
+    let t_on = truth.resample(est.spec, Some(&survey.surface));
+    let decor = crate::figures::SectionDecor {
+        title: "True model of the demo site".into(),
+        surface: Some(&survey.surface),
+        receivers: &receivers,
+        sources: &sources,
+        covered: Some(&covered),
+        v_range: Some(est.range()),
+        footnote: Some("pale: outside the PINN model's ray coverage".into()),
+        ..Default::default()
+    };
+    crate::figures::velocity_section(&out.join("true-velocity"), &t_on, &decor)?;
+    say(&format!("done: open {} and {}", pinn_dir.join("report.html").display(), out.join("true-velocity.png").display()));
+    println!("\n{}", invert::CAUTION);
     Ok(ExitCode::SUCCESS)
 }
