@@ -33,7 +33,13 @@ fn percentile(v: &mut [f64], q: f64) -> f64 {
 }
 
 /// Depth below `surface` where a column of `m` first reaches `v` going down, m.
-fn depth_to(m: &VelocityGrid, surface: &Surface, i: usize, v: f64, covered: Option<&[bool]>) -> Option<f64> {
+fn depth_to(
+    m: &VelocityGrid,
+    surface: &Surface,
+    i: usize,
+    v: f64,
+    covered: Option<&[bool]>,
+) -> Option<f64> {
     let s = &m.spec;
     let x = s.x(i);
     let mut above: Option<(f64, f64)> = None;
@@ -86,7 +92,8 @@ pub fn against_truth(
         median_pct: median,
         p90_pct: p90,
         interface_columns: diffs.len(),
-        interface_mean_abs_m: (!diffs.is_empty()).then(|| diffs.iter().sum::<f64>() / diffs.len() as f64),
+        interface_mean_abs_m: (!diffs.is_empty())
+            .then(|| diffs.iter().sum::<f64>() / diffs.len() as f64),
         interface_max_abs_m: diffs.iter().copied().reduce(f64::max),
     }
 }
@@ -98,15 +105,36 @@ mod tests {
 
     #[test]
     fn a_model_against_itself_and_against_a_shifted_copy() {
-        let spec = GridSpec { x0: 0.0, z0: -20.0, dx: 0.5, dz: 0.5, nx: 41, nz: 41 };
+        let spec = GridSpec {
+            x0: 0.0,
+            z0: -20.0,
+            dx: 0.5,
+            dz: 0.5,
+            nx: 41,
+            nz: 41,
+        };
         let surf = Surface::flat(0.0);
-        let truth = VelocityGrid::analytic(spec, Some(&surf), &Analytic::Layered { v: vec![500.0, 2000.0], tops: vec![-6.0] });
+        let truth = VelocityGrid::analytic(
+            spec,
+            Some(&surf),
+            &Analytic::Layered {
+                v: vec![500.0, 2000.0],
+                tops: vec![-6.0],
+            },
+        );
         let cov = vec![true; spec.len()];
         let e = against_truth(&truth, &truth, &cov, &surf, 1500.0);
         assert_eq!(e.median_pct, 0.0);
         assert_eq!(e.interface_mean_abs_m, Some(0.0));
         // 10 % faster everywhere, interface 1 m deeper
-        let est = VelocityGrid::analytic(spec, Some(&surf), &Analytic::Layered { v: vec![550.0, 2200.0], tops: vec![-7.0] });
+        let est = VelocityGrid::analytic(
+            spec,
+            Some(&surf),
+            &Analytic::Layered {
+                v: vec![550.0, 2200.0],
+                tops: vec![-7.0],
+            },
+        );
         let e = against_truth(&est, &truth, &cov, &surf, 1500.0);
         assert!((e.median_pct - 10.0).abs() < 1e-9, "{e:?}");
         assert!((e.interface_mean_abs_m.unwrap() - 1.0).abs() < 0.2, "{e:?}");

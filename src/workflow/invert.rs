@@ -577,7 +577,12 @@ pub fn coverage_csv(model: &VelocityGrid, covered: &[bool]) -> String {
         for i in 0..s.nx {
             let k = s.idx(i, j);
             if !model.is_air(k) {
-                out.push_str(&format!("{:.4},{:.4},{}\n", s.x(i), s.z(j), u8::from(covered[k])));
+                out.push_str(&format!(
+                    "{:.4},{:.4},{}\n",
+                    s.x(i),
+                    s.z(j),
+                    u8::from(covered[k])
+                ));
             }
         }
     }
@@ -586,7 +591,8 @@ pub fn coverage_csv(model: &VelocityGrid, covered: &[bool]) -> String {
 
 /// Reads back a `coverage.csv` onto `model`'s nodes (missing nodes: not covered).
 pub fn read_coverage(path: &Path, model: &VelocityGrid) -> anyhow::Result<Vec<bool>> {
-    let text = std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
+    let text =
+        std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
     let s = &model.spec;
     let mut cov = vec![false; s.len()];
     for (n, line) in text.lines().enumerate().skip(1) {

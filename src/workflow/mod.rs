@@ -270,9 +270,15 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
     std::fs::create_dir_all(out)
         .with_context(|| format!("cannot create the output folder {}", out.display()))?;
     write_atomic(&out.join("check.txt"), text.as_bytes())?;
-    write_atomic(&out.join("check.json"), serde_json::to_string_pretty(&report)?.as_bytes())?;
+    write_atomic(
+        &out.join("check.json"),
+        serde_json::to_string_pretty(&report)?.as_bytes(),
+    )?;
     let pinn_dir = out.join("pinn");
-    say(&format!("2/3 PINN inversion into {} (about half a minute on 2 cores)", pinn_dir.display()));
+    say(&format!(
+        "2/3 PINN inversion into {} (about half a minute on 2 cores)",
+        pinn_dir.display()
+    ));
     let mut settings = RunSettings::default();
     if let Some(steps) = a.steps {
         settings.pinn.steps = steps;
@@ -287,10 +293,18 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
     let inv = invert::run(&survey, &job)?;
     print!("\n{}", invert::summary_text(&inv, &pinn_dir));
     say("3/3 comparing with the site's true model (known only because the demo is synthetic)");
-    let truth = crate::model::VelocityGrid::read(&dir.join("true-model.csv")).map_err(|e| anyhow::anyhow!("{e}"))?;
-    let est = crate::model::VelocityGrid::read(&pinn_dir.join("velocity.csv")).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let truth = crate::model::VelocityGrid::read(&dir.join("true-model.csv"))
+        .map_err(|e| anyhow::anyhow!("{e}"))?;
+    let est = crate::model::VelocityGrid::read(&pinn_dir.join("velocity.csv"))
+        .map_err(|e| anyhow::anyhow!("{e}"))?;
     let covered = invert::read_coverage(&pinn_dir.join("coverage.csv"), &est)?;
-    let err = crate::compare::against_truth(&est, &truth, &covered, &survey.surface, job.settings.interface_mps);
+    let err = crate::compare::against_truth(
+        &est,
+        &truth,
+        &covered,
+        &survey.surface,
+        job.settings.interface_mps,
+    );
     let cmp = format!(
         "against the true model, ray-covered zone ({} nodes): median velocity error {:.1} %, 90th percentile {:.1} %\n\
          depth to {:.0} m/s over {} columns: mean error {}, largest {}\n",
@@ -303,7 +317,10 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
         err.interface_max_abs_m.map_or("-".into(), |v| format!("{v:.2} m")),
     );
     print!("{cmp}");
-    write_atomic(&out.join("truth-comparison.json"), serde_json::to_string_pretty(&err)?.as_bytes())?;
+    write_atomic(
+        &out.join("truth-comparison.json"),
+        serde_json::to_string_pretty(&err)?.as_bytes(),
+    )?;
     // the true section beside the estimate, on the same colour scale
     let receivers = survey.receivers();
     let sources: Vec<crate::survey::Point> = survey.shots.iter().map(|s| s.source).collect();
@@ -319,7 +336,11 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
         ..Default::default()
     };
     crate::figures::velocity_section(&out.join("true-velocity"), &t_on, &decor)?;
-    say(&format!("done: open {} and {}", pinn_dir.join("report.html").display(), out.join("true-velocity.png").display()));
+    say(&format!(
+        "done: open {} and {}",
+        pinn_dir.join("report.html").display(),
+        out.join("true-velocity.png").display()
+    ));
     println!("\n{}", invert::CAUTION);
     Ok(ExitCode::SUCCESS)
 }
