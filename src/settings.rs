@@ -71,6 +71,9 @@ impl RunSettings {
                 self.sigma_ms
             ));
         }
+        if self.pinn.steps == 0 {
+            return Err("steps = 0: give at least one training step (the default is 3000)".into());
+        }
         if let Some(c) = self.cell_m {
             if !(c.is_finite() && c > 0.0) {
                 return Err(format!("cell_m = {c} must be a positive number of metres"));

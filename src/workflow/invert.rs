@@ -164,6 +164,9 @@ impl Observer for Watch {
         }
     }
     fn on_checkpoint(&mut self, cp: &Checkpoint) {
+        if let Some(dir) = self.checkpoint.parent() {
+            let _ = std::fs::create_dir_all(dir);
+        }
         if let Err(e) = write_atomic(&self.checkpoint, &cp.to_bytes()) {
             self.error = Some(format!(
                 "cannot write the checkpoint {}: {e}",
@@ -400,6 +403,8 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
         warnings: survey.warnings.clone(),
         caution: CAUTION,
     };
+    std::fs::create_dir_all(&job.out)
+        .with_context(|| format!("cannot create the output folder {}", job.out.display()))?;
     write_outputs(survey, job, &model, &covered, &fmm_times, &outcome, &report)?;
     Ok(report)
 }
