@@ -347,3 +347,23 @@ fn resume_from_another_survey_is_refused_and_overwrites_nothing() {
         std::fs::read(d.path().join("first/checkpoint.bin")).unwrap()
     );
 }
+
+/// A pick faster than a straight path at v_max cannot be fitted by any model within the
+/// bounds: the message names the file line and the shot.
+#[test]
+fn picks_no_model_within_the_bounds_can_fit_are_named() {
+    let d = tempfile::tempdir().unwrap();
+    synthetic_picks(d.path());
+    let mut text = std::fs::read_to_string(d.path().join("picks.csv")).unwrap();
+    // 40 m in 2 ms is 20 km/s, far beyond v_max = 5000 m/s
+    text.push_str("S9,0,0,40,0,2.0,0.5\n");
+    std::fs::write(d.path().join("fast.csv"), text).unwrap();
+    let o = run(
+        &["invert", "fast.csv", "--config", "small.toml", "-o", "out"],
+        d.path(),
+    );
+    assert!(!o.status.success());
+    let e = stderr(&o);
+    assert!(e.contains("fast.csv:127") && e.contains("shot 'S9'"), "{e}");
+    assert!(!d.path().join("out").exists());
+}

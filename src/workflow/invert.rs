@@ -317,8 +317,8 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
             s.pinn.v_max
         );
     }
-    std::fs::create_dir_all(&job.out)
-        .with_context(|| format!("cannot create the output folder {}", job.out.display()))?;
+    // The output folder is made at the first checkpoint, after the engine has checked
+    // its settings and the picks, so a refused run leaves nothing behind.
     let mut watch = Watch {
         bar: job.progress.then(|| {
             let b = indicatif::ProgressBar::new(s.pinn.steps as u64);
@@ -355,6 +355,17 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
         }) => {
             eprintln!("warning: training diverged at step {step} after {retries} roll-backs; writing the best model so far");
             *best
+        }
+        Err(pinn::PinnError::Pick { index, problem, .. }) if index < survey.picks.len() => {
+            let p = &survey.picks[index];
+            bail!(
+                "{}:{}: shot '{}' at x={} to the receiver at x={}: {problem}",
+                job.picks_path.display(),
+                p.line,
+                p.shot,
+                p.source.x,
+                p.receiver.x
+            )
         }
         Err(e) => return Err(anyhow::anyhow!("{e}")),
     };
