@@ -50,6 +50,14 @@ pub enum VerifyError {
     /// The cell size asked for is unusable.
     #[error("solver cell {0} m must be a positive number no larger than the model itself")]
     BadCell(f64),
+    /// The solver refused one shot.
+    #[error("shot '{id}': {error}")]
+    Shot {
+        /// shot id
+        id: String,
+        /// what the solver said
+        error: EikonalError,
+    },
     /// The solver refused.
     #[error("{0}")]
     Solver(#[from] EikonalError),
@@ -149,7 +157,14 @@ pub fn predict(
         .iter()
         .map(|s| s.picks.iter().map(|&k| survey.picks[k].receiver).collect())
         .collect();
-    let times = eikonal::solve_many(spec, &slowness, &sources, &receivers, opts)?;
+    let times =
+        eikonal::solve_many(spec, &slowness, &sources, &receivers, opts).map_err(|e| match e {
+            EikonalError::InShot { shot, error } => VerifyError::Shot {
+                id: survey.shots[shot].id.clone(),
+                error: *error,
+            },
+            e => VerifyError::Solver(e),
+        })?;
     let mut out = vec![0.0; survey.picks.len()];
     for (shot, t) in survey.shots.iter().zip(times) {
         for (&k, t) in shot.picks.iter().zip(t) {

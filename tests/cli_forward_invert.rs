@@ -149,15 +149,15 @@ fn forward_refuses_a_model_that_does_not_cover_the_line() {
 fn forward_refuses_a_source_in_the_air() {
     let d = tempfile::tempdir().unwrap();
     write_model(d.path());
-    let mut s = String::from("shot,source_x,source_z,receiver_x,receiver_z,time_ms\n");
-    s.push_str("A,10,0,20,0,0\nB,30,0,20,0,0\n");
-    std::fs::write(d.path().join("g.csv"), s).unwrap();
-    // a surface file lifts the ground 5 m above the model's top at x = 20: fine, carried up;
-    // but a source 8 m above the model's ground with the surface through it is in the air
-    let mut s2 = String::from("shot,source_x,source_z,receiver_x,receiver_z,time_ms\n");
-    s2.push_str("A,10,8,20,0,0\n");
-    std::fs::write(d.path().join("air.csv"), s2).unwrap();
-    std::fs::write(d.path().join("flat.csv"), "x,z\n-5,0\n55,0\n").unwrap();
+    // a hill at x = 30 m lifts the solver grid to z = 5 m; a shot at x = 10 m, z = 4 m
+    // then sits 4 m above the flat ground there
+    std::fs::write(
+        d.path().join("hill.csv"),
+        "x,z\n-5,0\n25,0\n30,5\n35,0\n55,0\n",
+    )
+    .unwrap();
+    let g = "shot,source_x,source_z,receiver_x,receiver_z,time_ms\nA,10,4,20,0,0\n";
+    std::fs::write(d.path().join("air.csv"), g).unwrap();
     let o = run(
         &[
             "forward",
@@ -166,7 +166,7 @@ fn forward_refuses_a_source_in_the_air() {
             "--picks",
             "air.csv",
             "--surface",
-            "flat.csv",
+            "hill.csv",
             "-o",
             "t.csv",
         ],
@@ -174,7 +174,35 @@ fn forward_refuses_a_source_in_the_air() {
     );
     assert!(!o.status.success());
     let e = stderr(&o);
-    assert!(e.contains("air") || e.contains("outside the model"), "{e}");
+    assert!(e.contains("shot 'A'") && e.contains("in the air"), "{e}");
+    assert!(!d.path().join("t.csv").exists());
+}
+
+#[test]
+fn forward_refuses_a_cell_too_coarse_for_the_receivers() {
+    let d = tempfile::tempdir().unwrap();
+    write_model(d.path());
+    write_geometry(d.path());
+    let o = run(
+        &[
+            "forward",
+            "--model",
+            "model.csv",
+            "--picks",
+            "geometry.csv",
+            "--cell",
+            "3",
+            "-o",
+            "t.csv",
+        ],
+        d.path(),
+    );
+    assert!(!o.status.success());
+    let e = stderr(&o);
+    assert!(
+        e.contains("closer than the solver cell of 3 m") && e.contains("--cell"),
+        "{e}"
+    );
     assert!(!d.path().join("t.csv").exists());
 }
 
