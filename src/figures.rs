@@ -137,6 +137,8 @@ pub struct SectionDecor<'a> {
     pub contours: Option<Vec<f64>>,
     /// A line of text under the plot (cautions, provenance).
     pub footnote: Option<String>,
+    /// An interface to draw as a dashed white line: (x, elevation) points and its label.
+    pub interface: Option<(Vec<(f64, f64)>, String)>,
 }
 
 /// A straight piece of a contour line.
@@ -320,6 +322,25 @@ pub fn velocity_section(
                 pts,
                 BLACK.stroke_width(2),
             )))?;
+        }
+        if let Some((pts, label)) = &d.interface {
+            // dashed: every other short piece between neighbouring columns
+            let white = RGBColor(255, 255, 255);
+            for (k, w) in pts.windows(2).enumerate() {
+                if k % 2 == 0 && (w[1].0 - w[0].0).abs() < 3.0 * s.dx {
+                    ch.draw_series(std::iter::once(PathElement::new(
+                        vec![w[0], w[1]],
+                        white.stroke_width(3),
+                    )))?;
+                }
+            }
+            if let Some(first) = pts.first() {
+                ch.draw_series(std::iter::once(Text::new(
+                    label.clone(),
+                    (first.0 + 1.0, first.1 - 0.8),
+                    ("sans-serif", 14).into_font().color(&white),
+                )))?;
+            }
         }
         ch.draw_series(
             d.receivers

@@ -243,7 +243,7 @@ fn model_that_is_not_a_regular_grid() {
 
 #[test]
 fn model_with_zero_or_negative_velocity() {
-    for bad in ["0", "-300"] {
+    for bad in ["0", "-300", "NaN"] {
         let s = regular_model().replacen("1,-1,500", &format!("1,-1,{bad}"), 1);
         let e = model_error(&s);
         assert!(

@@ -555,6 +555,15 @@ fn write_outputs(
         sources: &sources,
         covered: Some(covered),
         footnote: Some("pale: no ray coverage (unconstrained)".into()),
+        interface: Some((
+            report
+                .interface
+                .points
+                .iter()
+                .map(|p| (p[0], survey.surface.elevation(p[0]) - p[1]))
+                .collect(),
+            format!("{:.0} m/s", report.interface.velocity_mps),
+        )),
         ..Default::default()
     };
     figures::velocity_section(&out.join("velocity"), model, &decor)?;
