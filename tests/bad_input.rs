@@ -242,14 +242,14 @@ fn model_that_is_not_a_regular_grid() {
 }
 
 #[test]
-fn model_with_zero_or_negative_velocity() {
+fn model_with_zero_negative_or_nan_velocity() {
     for bad in ["0", "-300", "NaN"] {
         let s = regular_model().replacen("1,-1,500", &format!("1,-1,{bad}"), 1);
         let e = model_error(&s);
         assert!(
             e.contains("model.csv:7:")
                 && e.contains("column 'velocity_mps'")
-                && e.contains("not positive"),
+                && (e.contains("not positive") || e.contains("not a finite number")),
             "{e}"
         );
     }
