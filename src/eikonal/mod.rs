@@ -380,6 +380,13 @@ pub fn solve_many(
         .par_iter()
         .zip(receivers.par_iter())
         .enumerate()
+        // one piece of work per thread, so each builds its workspace once
+        .with_min_len(
+            sources
+                .len()
+                .div_ceil(rayon::current_num_threads().max(1))
+                .max(1),
+        )
         .map_init(
             || (fmm::Workspace::new(spec), TimeField::empty(*spec)),
             |(ws, field), (shot, (src, recs))| {
@@ -423,6 +430,13 @@ pub fn solve_many_rays(
         .par_iter()
         .zip(receivers.par_iter())
         .enumerate()
+        // one piece of work per thread, so each builds its workspace once
+        .with_min_len(
+            sources
+                .len()
+                .div_ceil(rayon::current_num_threads().max(1))
+                .max(1),
+        )
         .map_init(
             || (fmm::Workspace::new(spec), TimeField::empty(*spec)),
             |(ws, field), (shot, (src, recs))| {
