@@ -87,7 +87,7 @@ impl TrainedModel {
             domain: domain.clone(),
             start: start.clone(),
             settings: settings.clone(),
-            frame: Frame::new(domain, settings.v_min, settings.v_max),
+            frame: Frame::new(domain, start, settings.v_min, settings.v_max),
             tau_shape,
             vel_shape,
             tau,
@@ -122,7 +122,7 @@ impl TrainedModel {
             b.x.extend(x.iter().map(|&v| v as f32));
             b.dx.extend(dx.iter().map(|&v| v as f32));
             b.dz.extend(dz.iter().map(|&v| v as f32));
-            let (t0, gx, gz) = self.frame.factor(&self.domain, &self.start, a, s);
+            let (t0, gx, gz) = self.frame.factor(&self.domain, a, s);
             b.t0.push(t0 as f32);
             b.gx.push(gx as f32);
             b.gz.push(gz as f32);
