@@ -183,12 +183,7 @@ impl Frame {
     /// with the ground's gradient: `τ = T/T0` stays near 1 at every offset instead of
     /// falling to a fraction of it for diving and head waves (the straight-ray factor's
     /// `∂T0/∂z` also grows like `r·∂s/∂z`, which `τ` then had to cancel).
-    pub fn factor(
-        &self,
-        domain: &Domain,
-        a: [f64; 2],
-        b: [f64; 2],
-    ) -> (f64, f64, f64) {
+    pub fn factor(&self, domain: &Domain, a: [f64; 2], b: [f64; 2]) -> (f64, f64, f64) {
         let (wa, gwx, gwz) = self.factor_velocity(domain, a);
         let (wb, _, _) = self.factor_velocity(domain, b);
         let (dx, dz) = (a[0] - b[0], a[1] - b[1]);
@@ -241,25 +236,39 @@ impl Frame {
     }
 
     /// Velocity-network input at `p` and its derivatives with respect to x and z:
-    /// scaled `(x, z)` in 2-D, scaled depth in 1-D.
+    /// scaled `(x, z)` in 2-D (`(x, depth)` with `follow_ground`), scaled depth in 1-D,
+    /// each multiplied by `scale`.
     pub fn vel_input(
         &self,
         domain: &Domain,
         one_d: bool,
+        follow_ground: bool,
+        scale: f64,
         p: [f64; 2],
     ) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
+        let k = scale;
         if one_d {
             let d = domain.depth(p[0], p[1]);
             (
-                vec![(d - self.hd) / self.hd],
-                vec![domain.slope(p[0]) / self.hd],
-                vec![-1.0 / self.hd],
+                vec![k * (d - self.hd) / self.hd],
+                vec![k * domain.slope(p[0]) / self.hd],
+                vec![-k / self.hd],
+            )
+        } else if follow_ground {
+            let d = domain.depth(p[0], p[1]);
+            (
+                vec![k * (p[0] - self.xc) / self.hx, k * (d - self.hd) / self.hd],
+                vec![k / self.hx, k * domain.slope(p[0]) / self.hd],
+                vec![0.0, -k / self.hd],
             )
         } else {
             (
-                vec![(p[0] - self.xc) / self.hx, (p[1] - self.zc) / self.hz],
-                vec![1.0 / self.hx, 0.0],
-                vec![0.0, 1.0 / self.hz],
+                vec![
+                    k * (p[0] - self.xc) / self.hx,
+                    k * (p[1] - self.zc) / self.hz,
+                ],
+                vec![k / self.hx, 0.0],
+                vec![0.0, k / self.hz],
             )
         }
     }

@@ -144,7 +144,13 @@ impl TrainedModel {
             lz: Vec::new(),
         };
         for p in points {
-            let (x, dx, dz) = self.frame.vel_input(&self.domain, one_d, p);
+            let (x, dx, dz) = self.frame.vel_input(
+                &self.domain,
+                one_d,
+                self.settings.vel_follow_ground,
+                self.settings.vel_input_scale,
+                p,
+            );
             b.x.extend(x.iter().map(|&v| v as f32));
             b.dx.extend(dx.iter().map(|&v| v as f32));
             b.dz.extend(dz.iter().map(|&v| v as f32));
