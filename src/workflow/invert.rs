@@ -150,7 +150,7 @@ impl Observer for Watch {
         }
         if let Some(b) = &self.bar {
             b.set_position(s.step as u64);
-            if s.step % 10 == 0 || s.chi2.is_some() {
+            if s.step.is_multiple_of(10) || s.chi2.is_some() {
                 b.set_message(format!(
                     "data {:.3}  eikonal {:.2e}  reg {:.2e}  rms {:.2} ms{}",
                     s.data,
