@@ -104,14 +104,36 @@ pub(crate) struct Frame {
     pub hd: f64,
     pub v_min: f64,
     pub v_max: f64,
+    /// velocity at the ground of the travel-time factor's linear ground, m/s
+    pub factor_v_top: f64,
+    /// its gradient with depth, 1/s
+    pub factor_g: f64,
 }
 
 /// Number of pair features of the travel-time network.
 pub(crate) const TAU_FEATURES: usize = 6;
 
 impl Frame {
-    pub fn new(domain: &Domain, v_min: f64, v_max: f64) -> Frame {
+    /// The frame of `domain`. The travel-time factor's linear ground runs from the
+    /// start model's velocity at the ground with the start model's mean gradient down
+    /// to the depth where it first reaches its largest velocity (for a gradient start,
+    /// its gradient; never negative).
+    pub fn new(domain: &Domain, start: &StartModel, v_min: f64, v_max: f64) -> Frame {
         let zt = domain.z_top();
+        let v_top = start.velocity(0.0).clamp(v_min, v_max);
+        let g = match start {
+            StartModel::Gradient { gradient, .. } => gradient.max(0.0),
+            StartModel::Profile { depth_m, velocity } => {
+                let top = velocity.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+                let k = velocity.iter().position(|&v| v >= top).unwrap_or(0);
+                let d = depth_m[k];
+                if d > 0.0 {
+                    ((top.min(v_max) - v_top) / d).max(0.0)
+                } else {
+                    0.0
+                }
+            }
+        };
         Frame {
             xc: 0.5 * (domain.x_min + domain.x_max),
             hx: 0.5 * (domain.x_max - domain.x_min),
@@ -120,6 +142,8 @@ impl Frame {
             hd: 0.5 * domain.max_depth(),
             v_min,
             v_max,
+            factor_v_top: v_top,
+            factor_g: g,
         }
     }
 
@@ -147,44 +171,52 @@ impl Frame {
         (f, dx, dz)
     }
 
-    /// The factor `T0 = r·(s(a) + s(b))/2` with `s = 1/v_start`, and `∂T0/∂a`. It is the
-    /// straight-ray time through the mean end-point slowness: reciprocal, exact for a
-    /// constant start model, and it carries the `r → 0` singularity (Fomel, Luo & Zhao
-    /// 2009) so that the network factor `τ = T/T0` stays smooth.
-    pub fn factor(
-        &self,
-        domain: &Domain,
-        start: &StartModel,
-        a: [f64; 2],
-        b: [f64; 2],
-    ) -> (f64, f64, f64) {
-        let (sa, gsx, gsz) = self.start_slowness(domain, start, a);
-        let (sb, _, _) = self.start_slowness(domain, start, b);
+    /// The factor `T0` and `∂T0/∂a`: the exact first-arrival time between `a` and `b`
+    /// through the linear ground `w(d) = w_top + g·d` (`d` the depth below the ground,
+    /// `w_top` and `g` from the start model, see [`Frame::new`]),
+    /// `T0 = (2/g)·asinh(g·r / (2·sqrt(w(a)·w(b))))`, which is the closed form
+    /// `acosh(1 + g²r²/(2·w_a·w_b))/g` of Fomel, Luo & Zhao (2009, J. Comput. Phys. 228,
+    /// eq. 20) written with `acosh(1 + 2u²) = 2·asinh(u)` so that it stays accurate for
+    /// small `g·r` (it tends to `r/sqrt(w_a·w_b)`, the constant-velocity time, as `g → 0`).
+    /// It is reciprocal, carries the `r → 0` singularity (factored eikonal, Fomel, Luo &
+    /// Zhao 2009), and, unlike a straight ray through the end-point slownesses, it bends
+    /// with the ground's gradient: `τ = T/T0` stays near 1 at every offset instead of
+    /// falling to a fraction of it for diving and head waves (the straight-ray factor's
+    /// `∂T0/∂z` also grows like `r·∂s/∂z`, which `τ` then had to cancel).
+    pub fn factor(&self, domain: &Domain, a: [f64; 2], b: [f64; 2]) -> (f64, f64, f64) {
+        let (wa, gwx, gwz) = self.factor_velocity(domain, a);
+        let (wb, _, _) = self.factor_velocity(domain, b);
         let (dx, dz) = (a[0] - b[0], a[1] - b[1]);
         let r = (dx * dx + dz * dz).sqrt();
-        let sm = 0.5 * (sa + sb);
         let (ux, uz) = if r > 0.0 {
             (dx / r, dz / r)
         } else {
             (0.0, 0.0)
         };
-        (r * sm, ux * sm + 0.5 * r * gsx, uz * sm + 0.5 * r * gsz)
+        let w = (wa * wb).sqrt();
+        let g = self.factor_g;
+        let u = 0.5 * g * r / w;
+        let t0 = if g * r > 1e-6 * w {
+            2.0 / g * u.asinh()
+        } else {
+            // series of (2/g)·asinh(u) for small u
+            r / w * (1.0 - u * u / 6.0)
+        };
+        // ∂T0/∂a = (∇r − r·∇w_a/(2·w_a)) / (w·sqrt(1 + u²))
+        let k = 1.0 / (w * (1.0 + u * u).sqrt());
+        let h = 0.5 * r / wa;
+        (t0, k * (ux - h * gwx), k * (uz - h * gwz))
     }
 
-    /// Start slowness at `p` (velocity clamped into the bounds) and its gradient.
-    pub fn start_slowness(
-        &self,
-        domain: &Domain,
-        start: &StartModel,
-        p: [f64; 2],
-    ) -> (f64, f64, f64) {
+    /// Velocity of the factor's linear ground at `p` and its gradient.
+    fn factor_velocity(&self, domain: &Domain, p: [f64; 2]) -> (f64, f64, f64) {
         let d = domain.depth(p[0], p[1]);
-        let v = start.velocity(d);
-        let vc = v.clamp(self.v_min, self.v_max);
-        let dv = if v == vc { start.dv_ddepth(d) } else { 0.0 };
+        if d <= 0.0 {
+            return (self.factor_v_top, 0.0, 0.0);
+        }
+        let g = self.factor_g;
         // depth gradient: (slope, −1)
-        let ds = -dv / (vc * vc);
-        (1.0 / vc, ds * domain.slope(p[0]), -ds)
+        (self.factor_v_top + g * d, g * domain.slope(p[0]), -g)
     }
 
     /// Logit of the start velocity in the bounds, `ℓ = ln(q/(1 − q))`,
@@ -204,25 +236,39 @@ impl Frame {
     }
 
     /// Velocity-network input at `p` and its derivatives with respect to x and z:
-    /// scaled `(x, z)` in 2-D, scaled depth in 1-D.
+    /// scaled `(x, z)` in 2-D (`(x, depth)` with `follow_ground`), scaled depth in 1-D,
+    /// each multiplied by `scale`.
     pub fn vel_input(
         &self,
         domain: &Domain,
         one_d: bool,
+        follow_ground: bool,
+        scale: f64,
         p: [f64; 2],
     ) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
+        let k = scale;
         if one_d {
             let d = domain.depth(p[0], p[1]);
             (
-                vec![(d - self.hd) / self.hd],
-                vec![domain.slope(p[0]) / self.hd],
-                vec![-1.0 / self.hd],
+                vec![k * (d - self.hd) / self.hd],
+                vec![k * domain.slope(p[0]) / self.hd],
+                vec![-k / self.hd],
+            )
+        } else if follow_ground {
+            let d = domain.depth(p[0], p[1]);
+            (
+                vec![k * (p[0] - self.xc) / self.hx, k * (d - self.hd) / self.hd],
+                vec![k / self.hx, k * domain.slope(p[0]) / self.hd],
+                vec![0.0, -k / self.hd],
             )
         } else {
             (
-                vec![(p[0] - self.xc) / self.hx, (p[1] - self.zc) / self.hz],
-                vec![1.0 / self.hx, 0.0],
-                vec![0.0, 1.0 / self.hz],
+                vec![
+                    k * (p[0] - self.xc) / self.hx,
+                    k * (p[1] - self.zc) / self.hz,
+                ],
+                vec![k / self.hx, 0.0],
+                vec![0.0, k / self.hz],
             )
         }
     }

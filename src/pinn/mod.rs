@@ -6,9 +6,10 @@
 //!
 //! Two networks:
 //! * `τ(a, b)`, the travel-time factor between a field point `a` and a source `b`, one
-//!   network for every source. The time is `T = T0·τ` with `T0` the straight-ray time
-//!   through the start model's end-point slownesses ([`geom`]), which removes the point
-//!   source singularity (factored eikonal, Fomel, Luo & Zhao 2009, J. Comput. Phys. 228).
+//!   network for every source. The time is `T = T0·τ` with `T0` the exact time through
+//!   a linear ground `v = v_top + g·depth` taken from the start model ([`geom`]), which
+//!   removes the point source singularity (factored eikonal, Fomel, Luo & Zhao 2009,
+//!   J. Comput. Phys. 228) and already bends with depth, so `τ` stays near 1.
 //!   τ sees the pair only through features symmetric in `a ↔ b`, so `T(a, b) = T(b, a)`
 //!   holds exactly and every receiver serves as a virtual source for collocation.
 //! * `v(x, z)` (or `v(depth)` with `dim = 1`), bounded in `(v_min, v_max)` by
@@ -113,6 +114,14 @@ pub struct PinnSettings {
     pub vel_width: usize,
     /// Hidden layers of the velocity network.
     pub vel_depth: usize,
+    /// 2-D velocity input `(x, depth below the ground)` instead of `(x, z)`: layers
+    /// that follow the topography are then simple functions of the input.
+    pub vel_follow_ground: bool,
+    /// Factor on the velocity network's scaled inputs (about `[-1, 1]` at 1): larger
+    /// values let the first layer resolve shorter wavelengths (the frequency scale of
+    /// Fourier-feature and sine networks: Tancik et al. 2020, Sitzmann et al. 2020,
+    /// NeurIPS).
+    pub vel_input_scale: f64,
     /// Hidden activation of both networks.
     pub activation: Activation,
     /// Evaluate tanh as `1 − 2/(exp(2a)+1)` off the tape (faster, same slope).
@@ -181,11 +190,13 @@ impl Default for PinnSettings {
             tau_depth: 4,
             vel_width: 32,
             vel_depth: 3,
+            vel_follow_ground: false,
+            vel_input_scale: 1.0,
             activation: Activation::Tanh,
             fast_tanh: true,
             steps: 3000,
             learning_rate: 2e-3,
-            lr_half_life: 1000.0,
+            lr_half_life: 2000.0,
             lr_min: 1e-5,
             beta1: 0.9,
             beta2: 0.999,

@@ -87,7 +87,7 @@ impl TrainedModel {
             domain: domain.clone(),
             start: start.clone(),
             settings: settings.clone(),
-            frame: Frame::new(domain, settings.v_min, settings.v_max),
+            frame: Frame::new(domain, start, settings.v_min, settings.v_max),
             tau_shape,
             vel_shape,
             tau,
@@ -122,7 +122,7 @@ impl TrainedModel {
             b.x.extend(x.iter().map(|&v| v as f32));
             b.dx.extend(dx.iter().map(|&v| v as f32));
             b.dz.extend(dz.iter().map(|&v| v as f32));
-            let (t0, gx, gz) = self.frame.factor(&self.domain, &self.start, a, s);
+            let (t0, gx, gz) = self.frame.factor(&self.domain, a, s);
             b.t0.push(t0 as f32);
             b.gx.push(gx as f32);
             b.gz.push(gz as f32);
@@ -144,7 +144,13 @@ impl TrainedModel {
             lz: Vec::new(),
         };
         for p in points {
-            let (x, dx, dz) = self.frame.vel_input(&self.domain, one_d, p);
+            let (x, dx, dz) = self.frame.vel_input(
+                &self.domain,
+                one_d,
+                self.settings.vel_follow_ground,
+                self.settings.vel_input_scale,
+                p,
+            );
             b.x.extend(x.iter().map(|&v| v as f32));
             b.dx.extend(dx.iter().map(|&v| v as f32));
             b.dz.extend(dz.iter().map(|&v| v as f32));

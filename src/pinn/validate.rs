@@ -60,6 +60,7 @@ pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
         ("learning_rate", s.learning_rate),
         ("lr_half_life", s.lr_half_life),
         ("adam_eps", s.adam_eps),
+        ("vel_input_scale", s.vel_input_scale),
     ] {
         if !(v.is_finite() && v > 0.0) {
             return Err(bad(

@@ -439,7 +439,7 @@ fn fill_surface_air(model: VelocityGrid, surface: &crate::survey::Surface) -> Ve
 
 /// Nodes crossed by at least one ray of the fast-marching check, and the number of
 /// rays that could not be traced (left out of the coverage, counted in the report).
-fn coverage(
+pub fn coverage(
     survey: &Survey,
     model: &VelocityGrid,
     opts: &FmmOptions,
