@@ -240,12 +240,11 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         resume: None,
         progress: false,
     };
-    let report = invert::run(&survey, &job)?;
-    let written =
-        VelocityGrid::read(&out.join("velocity.csv")).map_err(|e| anyhow::anyhow!("{e}"))?;
-    // the written nodes stop below the highest station: raise the grid to the surface
-    let model = slowfield::verify::solver_grid(&written, &survey.surface, written.spec.dx)?;
-    let (covered, _) = invert::coverage(&survey, &model, &FmmOptions::default())?;
+    let invert::InvertOutcome {
+        report,
+        model,
+        covered,
+    } = invert::run(&survey, &job)?;
     let s = &model.spec;
     let mut errs = Vec::new();
     for j in 0..s.nz {

@@ -151,13 +151,6 @@ pub fn check(survey: &Survey, settings: &QcSettings) -> QcReport {
     };
     let stations = survey.stations();
     let receivers = survey.receivers();
-    let mut rx: Vec<f64> = receivers.iter().map(|p| p.x).collect();
-    rx.sort_by(f64::total_cmp);
-    let min_spacing = rx
-        .windows(2)
-        .map(|w| w[1] - w[0])
-        .filter(|d| *d > SAME_POSITION_M)
-        .fold(f64::INFINITY, f64::min);
     let (pairs, beyond) = reciprocals(survey, settings);
     let mismatches: Vec<f64> = pairs.iter().map(|p| p.mismatch_ms).collect();
     QcReport {
@@ -172,11 +165,7 @@ pub fn check(survey: &Survey, settings: &QcSettings) -> QcReport {
             .fold([f64::INFINITY, f64::NEG_INFINITY], |[a, b], p| {
                 [a.min(p.z), b.max(p.z)]
             }),
-        min_receiver_spacing_m: if min_spacing.is_finite() {
-            min_spacing
-        } else {
-            0.0
-        },
+        min_receiver_spacing_m: survey.min_receiver_spacing().unwrap_or(0.0),
         picks_without_sigma: picks.iter().filter(|p| p.sigma.is_none()).count(),
         per_shot: survey
             .shots

@@ -235,10 +235,32 @@ impl Survey {
         }
     }
 
+    /// Each shot's source and the receivers of its picks, in pick order: the shape the
+    /// fast-marching batch solvers take.
+    pub fn shot_geometry(&self) -> (Vec<Point>, Vec<Vec<Point>>) {
+        let sources = self.shots.iter().map(|s| s.source).collect();
+        let receivers = self
+            .shots
+            .iter()
+            .map(|s| s.picks.iter().map(|&k| self.picks[k].receiver).collect())
+            .collect();
+        (sources, receivers)
+    }
+
     /// Distinct receiver positions, sorted by x.
     pub fn receivers(&self) -> Vec<Point> {
         let pts: Vec<Point> = self.picks.iter().map(|p| p.receiver).collect();
         distinct_points(&pts)
+    }
+
+    /// Smallest distance along the line between two distinct receivers, m (`None` with
+    /// fewer than two).
+    pub fn min_receiver_spacing(&self) -> Option<f64> {
+        self.receivers()
+            .windows(2)
+            .map(|w| w[1].x - w[0].x)
+            .filter(|d| *d > SAME_POSITION_M)
+            .reduce(f64::min)
     }
 
     /// Every distinct station (sources and receivers), sorted by x.

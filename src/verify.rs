@@ -8,7 +8,7 @@
 
 use serde::Serialize;
 
-use crate::eikonal::{self, EikonalError, FmmOptions, Point};
+use crate::eikonal::{self, EikonalError, FmmOptions};
 use crate::model::{GridSpec, VelocityGrid};
 use crate::survey::{Surface, Survey};
 
@@ -64,16 +64,11 @@ pub enum VerifyError {
 }
 
 /// A default solver cell: fine enough for the solver's accuracy and to separate the
-/// receivers (a quarter of their smallest spacing), never coarser than the model.
-pub fn default_cell(model: &GridSpec, survey: &Survey) -> f64 {
-    let mut xs: Vec<f64> = survey.receivers().iter().map(|p| p.x).collect();
-    xs.sort_by(f64::total_cmp);
-    let spacing = xs
-        .windows(2)
-        .map(|w| w[1] - w[0])
-        .filter(|d| *d > 0.01)
-        .fold(f64::INFINITY, f64::min);
-    let c = model.dx.min(model.dz).min(spacing / 4.0).min(1.0);
+/// receivers (a quarter of their smallest spacing), never coarser than the model's
+/// spacing `model_spacing` (m) nor than 1 m.
+pub fn default_cell(model_spacing: f64, survey: &Survey) -> f64 {
+    let spacing = survey.min_receiver_spacing().unwrap_or(f64::INFINITY);
+    let c = model_spacing.min(spacing / 4.0).min(1.0);
     // round down to a "nice" value so the grid stays readable: 1, 0.5, 0.25, 0.2, 0.1, ...
     let nice = [1.0, 0.5, 0.25, 0.2, 0.1, 0.05, 0.025, 0.02, 0.01];
     nice.into_iter().find(|&n| n <= c + 1e-12).unwrap_or(0.01)
@@ -138,25 +133,17 @@ pub fn predict(
         }
     }
     let recs = survey.receivers();
-    let mut xs: Vec<f64> = recs.iter().map(|p| p.x).collect();
-    xs.sort_by(f64::total_cmp);
-    if let Some(w) = xs
-        .windows(2)
-        .find(|w| w[1] - w[0] > 0.01 && w[1] - w[0] < spec.dx)
-    {
-        return Err(VerifyError::TooCoarse {
-            a: w[0],
-            b: w[1],
-            cell: spec.dx,
-        });
+    if let Some((a, b, cells)) = eikonal::closest_pair_in_cells(spec, &recs) {
+        if cells < 1.0 {
+            return Err(VerifyError::TooCoarse {
+                a: recs[a].x,
+                b: recs[b].x,
+                cell: spec.dx.max(spec.dz),
+            });
+        }
     }
     let slowness = grid.slowness();
-    let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
-    let receivers: Vec<Vec<Point>> = survey
-        .shots
-        .iter()
-        .map(|s| s.picks.iter().map(|&k| survey.picks[k].receiver).collect())
-        .collect();
+    let (sources, receivers) = survey.shot_geometry();
     let times =
         eikonal::solve_many(spec, &slowness, &sources, &receivers, opts).map_err(|e| match e {
             EikonalError::InShot { shot, error } => VerifyError::Shot {

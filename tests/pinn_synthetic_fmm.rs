@@ -62,7 +62,7 @@ fn gradient_ground_is_recovered_and_verified_by_fast_marching() {
         resume: None,
         progress: false,
     };
-    let report = run(&survey, &job).unwrap();
+    let report = run(&survey, &job).unwrap().report;
     let est = VelocityGrid::read(&dir.path().join("out/velocity.csv")).unwrap();
     let covered = read_coverage(&dir.path().join("out/coverage.csv"), &est).unwrap();
     let err = against_truth(&est, &truth, &covered, &surf, 1000.0);

@@ -364,10 +364,59 @@ fn check_batch(
     Ok(())
 }
 
-/// Travel times of many shots, in parallel (rayon, one field per worker thread).
+/// Solves every shot in parallel and calls `per_receiver` with the shot's field for each
+/// of its receivers: the one loop behind [`solve_many`] and [`solve_many_rays`], open to
+/// callers that want something else of each field (rays that may fail, coverage, ...).
 ///
-/// `receivers[k]` are the receivers of `sources[k]`; the result has the same shape, s.
-/// Every input is checked before any work starts.
+/// `receivers[k]` are the receivers of `sources[k]`; the result has the same shape.
+/// Every input is checked before any work starts. Each rayon thread builds one
+/// workspace and one field (`O(nx·nz)` memory) and reuses them from shot to shot.
+pub fn map_shots<T: Send>(
+    spec: &GridSpec,
+    slowness: &[f64],
+    sources: &[Point],
+    receivers: &[Vec<Point>],
+    opts: &FmmOptions,
+    per_receiver: impl Fn(&TimeField, Point) -> T + Sync,
+) -> Result<Vec<Vec<T>>, EikonalError> {
+    check_batch(spec, slowness, sources, receivers)?;
+    // one piece of work per thread, so each builds its workspace once
+    let per_thread = sources
+        .len()
+        .div_ceil(rayon::current_num_threads().max(1))
+        .max(1);
+    Ok(sources
+        .par_iter()
+        .zip(receivers.par_iter())
+        .with_min_len(per_thread)
+        .map_init(
+            || (fmm::Workspace::new(spec), TimeField::empty(*spec)),
+            |(ws, field), (src, recs)| {
+                ws.solve(field, slowness, *src, opts);
+                recs.iter().map(|r| per_receiver(field, *r)).collect()
+            },
+        )
+        .collect())
+}
+
+/// Collects per-receiver results, naming the shot of the first failure.
+fn per_shot_results<T>(
+    all: Vec<Vec<Result<T, EikonalError>>>,
+) -> Result<Vec<Vec<T>>, EikonalError> {
+    all.into_iter()
+        .enumerate()
+        .map(|(shot, recs)| {
+            recs.into_iter()
+                .collect::<Result<Vec<T>, _>>()
+                .map_err(|e| EikonalError::InShot {
+                    shot,
+                    error: Box::new(e),
+                })
+        })
+        .collect()
+}
+
+/// Travel times of many shots, in parallel (see [`map_shots`]), s.
 pub fn solve_many(
     spec: &GridSpec,
     slowness: &[f64],
@@ -375,32 +424,14 @@ pub fn solve_many(
     receivers: &[Vec<Point>],
     opts: &FmmOptions,
 ) -> Result<Vec<Vec<f64>>, EikonalError> {
-    check_batch(spec, slowness, sources, receivers)?;
-    sources
-        .par_iter()
-        .zip(receivers.par_iter())
-        .enumerate()
-        // one piece of work per thread, so each builds its workspace once
-        .with_min_len(
-            sources
-                .len()
-                .div_ceil(rayon::current_num_threads().max(1))
-                .max(1),
-        )
-        .map_init(
-            || (fmm::Workspace::new(spec), TimeField::empty(*spec)),
-            |(ws, field), (shot, (src, recs))| {
-                ws.solve(field, slowness, *src, opts);
-                recs.iter()
-                    .map(|r| field.time_at(*r))
-                    .collect::<Result<Vec<f64>, _>>()
-                    .map_err(|e| EikonalError::InShot {
-                        shot,
-                        error: Box::new(e),
-                    })
-            },
-        )
-        .collect()
+    per_shot_results(map_shots(
+        spec,
+        slowness,
+        sources,
+        receivers,
+        opts,
+        |f, r| f.time_at(r),
+    )?)
 }
 
 /// One receiver's result from [`solve_many_rays`].
@@ -412,7 +443,7 @@ pub struct RayTime {
     pub ray: Ray,
 }
 
-/// Travel times and rays of many shots, in parallel (rayon, one field per worker).
+/// Travel times and rays of many shots, in parallel (see [`map_shots`]).
 ///
 /// This is what grid tomography needs: `time` is the forward prediction and
 /// `ray.weights` the row of the sensitivity matrix `∂T/∂s_k`.
@@ -424,37 +455,20 @@ pub fn solve_many_rays(
     opts: &FmmOptions,
     ray_opts: &RayOptions,
 ) -> Result<Vec<Vec<RayTime>>, EikonalError> {
-    check_batch(spec, slowness, sources, receivers)?;
     ray_opts.check()?;
-    sources
-        .par_iter()
-        .zip(receivers.par_iter())
-        .enumerate()
-        // one piece of work per thread, so each builds its workspace once
-        .with_min_len(
-            sources
-                .len()
-                .div_ceil(rayon::current_num_threads().max(1))
-                .max(1),
-        )
-        .map_init(
-            || (fmm::Workspace::new(spec), TimeField::empty(*spec)),
-            |(ws, field), (shot, (src, recs))| {
-                ws.solve(field, slowness, *src, opts);
-                recs.iter()
-                    .map(|r| {
-                        let time = field.time_at(*r)?;
-                        let ray = trace_ray(field, *r, ray_opts)?;
-                        Ok(RayTime { time, ray })
-                    })
-                    .collect::<Result<Vec<RayTime>, EikonalError>>()
-                    .map_err(|e| EikonalError::InShot {
-                        shot,
-                        error: Box::new(e),
-                    })
-            },
-        )
-        .collect()
+    per_shot_results(map_shots(
+        spec,
+        slowness,
+        sources,
+        receivers,
+        opts,
+        |f, r| {
+            Ok(RayTime {
+                time: f.time_at(r)?,
+                ray: trace_ray(f, r, ray_opts)?,
+            })
+        },
+    )?)
 }
 
 /// The two points closest together, as `(a, b, distance / max(dx, dz))`: when the

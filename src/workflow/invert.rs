@@ -59,17 +59,9 @@ pub fn geometry(survey: &Survey, s: &RunSettings) -> Geometry {
         .depth_m
         .unwrap_or_else(|| (1.5 * start.deepest_turning_m + 3.0).max(10.0).ceil());
     let (x0, x1) = survey.x_range();
-    let cell = s.cell_m.unwrap_or_else(|| {
-        let g = GridSpec {
-            x0,
-            z0: 0.0,
-            dx: 0.5,
-            dz: 0.5,
-            nx: 2,
-            nz: 2,
-        };
-        verify::default_cell(&g, survey)
-    });
+    let cell = s
+        .cell_m
+        .unwrap_or_else(|| verify::default_cell(0.5, survey));
     let ztop = survey
         .surface
         .nodes
@@ -174,6 +166,17 @@ impl Observer for Watch {
             ));
         }
     }
+}
+
+/// What [`run`] hands back besides the files it wrote.
+#[derive(Debug, Clone)]
+pub struct InvertOutcome {
+    /// The report (also in `report.json`).
+    pub report: InvertReport,
+    /// The velocity model on the output grid, air included (`velocity.csv` omits air).
+    pub model: VelocityGrid,
+    /// Per node of `model`: a ray of the fast-marching check passes within a cell.
+    pub covered: Vec<bool>,
 }
 
 /// Everything the report says about a run.
@@ -300,7 +303,7 @@ fn interface_depth(
 
 /// Runs the inversion and writes every output. Inputs are checked before the output
 /// folder is touched.
-pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
+pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertOutcome> {
     let t0 = Instant::now();
     let s = &job.settings;
     s.validate()
@@ -375,7 +378,6 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
     // Honest verification: the velocity network sampled onto the grid, times by fast marching.
     let v = outcome.model.velocity_on_grid(&geo.grid);
     let model = VelocityGrid { spec: geo.grid, v };
-    let model = fill_surface_air(model, &survey.surface);
     let opts = FmmOptions::default();
     let fmm_times = verify::predict(survey, &model, &opts)
         .map_err(|e| anyhow::anyhow!("verifying the model: {e}"))?;
@@ -417,64 +419,33 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertReport> {
     std::fs::create_dir_all(&job.out)
         .with_context(|| format!("cannot create the output folder {}", job.out.display()))?;
     write_outputs(survey, job, &model, &covered, &fmm_times, &outcome, &report)?;
-    Ok(report)
-}
-
-/// Nodes between the grid's top row and the surface stay air; nodes the network left
-/// undefined under the ground (none expected) are an error upstream.
-fn fill_surface_air(model: VelocityGrid, surface: &crate::survey::Surface) -> VelocityGrid {
-    let s = model.spec;
-    VelocityGrid::from_fn(s, Some(surface), |x, z| {
-        let i = ((x - s.x0) / s.dx).round() as usize;
-        let j = ((z - s.z0) / s.dz).round() as usize;
-        let v = model.v[s.idx(i.min(s.nx - 1), j.min(s.nz - 1))];
-        if v.is_nan() {
-            // the node sits on the surface within rounding: take the node below
-            model.v[s.idx(i.min(s.nx - 1), j.saturating_sub(1))]
-        } else {
-            v
-        }
+    Ok(InvertOutcome {
+        report,
+        model,
+        covered,
     })
 }
 
 /// Nodes crossed by at least one ray of the fast-marching check, and the number of
 /// rays that could not be traced (left out of the coverage, counted in the report).
-pub fn coverage(
+fn coverage(
     survey: &Survey,
     model: &VelocityGrid,
     opts: &FmmOptions,
 ) -> anyhow::Result<(Vec<bool>, usize)> {
-    use rayon::prelude::*;
-    let slowness = model.slowness();
-    let per_shot: Vec<Result<(Vec<f64>, usize), crate::eikonal::EikonalError>> = survey
-        .shots
-        .par_iter()
-        .map(|shot| {
-            let field = eikonal::solve(&model.spec, &slowness, shot.source, opts)?;
-            let mut cov = vec![0.0; model.spec.len()];
-            let mut failed = 0;
-            for &k in &shot.picks {
-                match eikonal::trace_ray(&field, survey.picks[k].receiver, &RayOptions::default()) {
-                    Ok(ray) => {
-                        for (node, w) in ray.weights {
-                            cov[node] += w;
-                        }
-                    }
-                    Err(_) => failed += 1,
-                }
-            }
-            Ok((cov, failed))
-        })
-        .collect();
-    let mut total = vec![0.0; model.spec.len()];
-    let mut failed = 0;
-    for r in per_shot {
-        let (c, f) = r.map_err(|e| anyhow::anyhow!("tracing rays for the coverage: {e}"))?;
-        for (t, v) in total.iter_mut().zip(c) {
-            *t += v;
-        }
-        failed += f;
-    }
+    let (sources, receivers) = survey.shot_geometry();
+    let ray_opts = RayOptions::default();
+    let rays = eikonal::map_shots(
+        &model.spec,
+        &model.slowness(),
+        &sources,
+        &receivers,
+        opts,
+        |f, r| eikonal::trace_ray(f, r, &ray_opts).ok(),
+    )
+    .map_err(|e| anyhow::anyhow!("tracing rays for the coverage: {e}"))?;
+    let failed = rays.iter().flatten().filter(|r| r.is_none()).count();
+    let total = eikonal::node_coverage(&model.spec, rays.iter().flatten().flatten());
     // a node counts as covered when a ray passes within one cell of it: rays between
     // neighbouring receivers skim the surface and would leave it speckled otherwise
     let sp = &model.spec;
@@ -616,18 +587,27 @@ pub fn coverage_csv(model: &VelocityGrid, covered: &[bool]) -> String {
 
 /// Reads back a `coverage.csv` onto `model`'s nodes (missing nodes: not covered).
 pub fn read_coverage(path: &Path, model: &VelocityGrid) -> anyhow::Result<Vec<bool>> {
-    let text =
-        std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
+    use crate::survey::{header_map, number, records};
+    let text = crate::error::read_text(path, "coverage")?;
+    let recs = records(path, &text)?;
+    let Some(((hline, header), rows)) = recs.split_first() else {
+        bail!("{}: the file is empty", path.display());
+    };
+    let col = header_map(path, *hline, header, &["x", "z", "covered"])?;
+    if col.len() != 3 {
+        bail!("{}:{hline}: the header must be x,z,covered", path.display());
+    }
     let s = &model.spec;
     let mut cov = vec![false; s.len()];
-    for (n, line) in text.lines().enumerate().skip(1) {
-        let f: Vec<&str> = line.split(',').collect();
-        let parse = |k: usize| -> anyhow::Result<f64> {
-            f.get(k)
-                .and_then(|v| v.trim().parse().ok())
-                .with_context(|| format!("{}:{}: expected x,z,covered", path.display(), n + 1))
-        };
-        let (x, z, c) = (parse(0)?, parse(1)?, parse(2)?);
+    for (line, f) in rows {
+        if f.len() != 3 {
+            bail!(
+                "{}:{line}: expected the three fields x,z,covered",
+                path.display()
+            );
+        }
+        let get = |name: &str| number(path, *line, name, &f[col[name]]);
+        let (x, z, c) = (get("x")?, get("z")?, get("covered")?);
         let i = ((x - s.x0) / s.dx).round();
         let j = ((z - s.z0) / s.dz).round();
         if i >= 0.0 && j >= 0.0 && (i as usize) < s.nx && (j as usize) < s.nz {

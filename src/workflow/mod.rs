@@ -23,6 +23,13 @@ fn load_survey(picks: &Path, surface: Option<&Path>) -> Result<Survey, crate::er
     }
 }
 
+/// Reports picks that cannot be used; the exit code says so.
+fn unusable(e: &crate::error::InputErrors) -> ExitCode {
+    eprintln!("{e}");
+    eprintln!("the picks cannot be used until these problems are fixed");
+    ExitCode::from(EXIT_UNUSABLE)
+}
+
 /// `slowfield check`.
 pub fn check(a: &CheckArgs) -> anyhow::Result<ExitCode> {
     for (name, v) in [
@@ -42,9 +49,7 @@ pub fn check(a: &CheckArgs) -> anyhow::Result<ExitCode> {
                 let msgs: Vec<String> = e.0.iter().map(|e| e.to_string()).collect();
                 println!("{}", serde_json::json!({ "usable": false, "errors": msgs }));
             }
-            eprintln!("{e}");
-            eprintln!("the picks cannot be used until these problems are fixed");
-            return Ok(ExitCode::from(EXIT_UNUSABLE));
+            return Ok(unusable(&e));
         }
     };
     let settings = QcSettings {
@@ -112,7 +117,7 @@ pub fn forward(a: &ForwardArgs) -> anyhow::Result<ExitCode> {
     let model = crate::model::VelocityGrid::read(&a.model).map_err(|e| anyhow::anyhow!("{e}"))?;
     let cell = match a.cell {
         Some(c) => c,
-        None => crate::verify::default_cell(&model.spec, &survey),
+        None => crate::verify::default_cell(model.spec.dx.min(model.spec.dz), &survey),
     };
     let grid = crate::verify::solver_grid(&model, &survey.surface, cell)
         .map_err(|e| anyhow::anyhow!("{}: {e}", a.model.display()))?;
@@ -225,9 +230,7 @@ pub fn invert(a: &InvertArgs) -> anyhow::Result<ExitCode> {
     let survey = match load_survey(&a.picks, a.surface.as_deref()) {
         Ok(s) => s,
         Err(e) => {
-            eprintln!("{e}");
-            eprintln!("the picks cannot be used until these problems are fixed");
-            return Ok(ExitCode::from(EXIT_UNUSABLE));
+            return Ok(unusable(&e));
         }
     };
     for w in &survey.warnings {
@@ -240,7 +243,7 @@ pub fn invert(a: &InvertArgs) -> anyhow::Result<ExitCode> {
         resume,
         progress: invert::interactive(),
     };
-    let report = invert::run(&survey, &job)?;
+    let report = invert::run(&survey, &job)?.report;
     print!("{}", invert::summary_text(&report, &a.output));
     Ok(ExitCode::SUCCESS)
 }
@@ -291,17 +294,15 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
         progress: invert::interactive(),
     };
     let inv = invert::run(&survey, &job)?;
-    print!("\n{}", invert::summary_text(&inv, &pinn_dir));
+    print!("\n{}", invert::summary_text(&inv.report, &pinn_dir));
     say("3/3 comparing with the site's true model (known only because the demo is synthetic)");
     let truth = crate::model::VelocityGrid::read(&dir.join("true-model.csv"))
         .map_err(|e| anyhow::anyhow!("{e}"))?;
-    let est = crate::model::VelocityGrid::read(&pinn_dir.join("velocity.csv"))
-        .map_err(|e| anyhow::anyhow!("{e}"))?;
-    let covered = invert::read_coverage(&pinn_dir.join("coverage.csv"), &est)?;
+    let (est, covered) = (&inv.model, &inv.covered);
     let err = crate::compare::against_truth(
-        &est,
+        est,
         &truth,
-        &covered,
+        covered,
         &survey.surface,
         job.settings.interface_mps,
     );
@@ -330,7 +331,7 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
         surface: Some(&survey.surface),
         receivers: &receivers,
         sources: &sources,
-        covered: Some(&covered),
+        covered: Some(covered),
         v_range: Some(est.range()),
         footnote: Some("pale: outside the PINN model's ray coverage".into()),
         ..Default::default()
