@@ -504,7 +504,7 @@ pub fn traveltime_curves(
             )?;
         }
         bottom.draw(&Text::new(
-            format!("dots: picks, lines: predicted, triangles: shots; grey lines: ±σ = {sigma_ms:.2} ms"),
+            format!("dots: picks, lines: predicted, triangles: shots; dark horizontal lines: ±σ = {sigma_ms:.2} ms"),
             (80, 280),
             ("sans-serif", 14).into_font(),
         ))?;

@@ -265,13 +265,14 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
     let picks = dir.join("picks.csv");
     let out = &a.output;
     let say = |m: &str| eprintln!("demo: {m}");
+    // the output folder first, so a bad -o fails before any work is done
+    std::fs::create_dir_all(out)
+        .with_context(|| format!("cannot create the output folder {}", out.display()))?;
     say(&format!("1/3 checking the picks in {}", picks.display()));
     let survey = survey::read_picks(&picks).map_err(|e| anyhow::anyhow!("{e}"))?;
     let report = qc::check(&survey, &QcSettings::default());
     let text = report.to_text(&picks.display().to_string());
     print!("{text}");
-    std::fs::create_dir_all(out)
-        .with_context(|| format!("cannot create the output folder {}", out.display()))?;
     write_atomic(&out.join("check.txt"), text.as_bytes())?;
     write_atomic(
         &out.join("check.json"),
