@@ -24,6 +24,7 @@ use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 use slowfield::eikonal::FmmOptions;
 use slowfield::model::{GridSpec, VelocityGrid};
+use slowfield::pinn::Checkpoint;
 use slowfield::settings::RunSettings;
 use slowfield::survey::{Pick, Point, Survey};
 use slowfield::workflow::invert::{self, InvertJob};
@@ -233,11 +234,20 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         Some(p) => slowfield::survey::read_picks(p).map_err(|e| anyhow::anyhow!("{e}"))?,
         None => synthetic_survey(c, 7),
     };
+    // PINN_RESUME=DIR continues from DIR/<case>/checkpoint.bin of an earlier run with
+    // the same PINN settings (to study the refinement stage without retraining)
+    let resume = match std::env::var_os("PINN_RESUME") {
+        Some(d) => {
+            let bytes = std::fs::read(Path::new(&d).join(c.name).join("checkpoint.bin"))?;
+            Some(Checkpoint::from_bytes(&bytes).map_err(|e| anyhow::anyhow!("{e}"))?)
+        }
+        None => None,
+    };
     let job = InvertJob {
         picks_path: PathBuf::from(format!("synthetic:{}", c.name)),
         out: out.to_path_buf(),
         settings: settings.clone(),
-        resume: None,
+        resume,
         progress: false,
     };
     let invert::InvertOutcome {

@@ -6,7 +6,7 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{read_text, InputError};
-use crate::pinn::PinnSettings;
+use crate::pinn::{PinnSettings, RefineSettings};
 
 /// Settings of an inversion run.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -24,6 +24,8 @@ pub struct RunSettings {
     pub interface_mps: f64,
     /// The PINN's own settings.
     pub pinn: PinnSettings,
+    /// The second stage: the velocity network refined against fast marching.
+    pub refine: RefineSettings,
 }
 
 impl Default for RunSettings {
@@ -34,6 +36,7 @@ impl Default for RunSettings {
             depth_m: None,
             interface_mps: 1500.0,
             pinn: PinnSettings::default(),
+            refine: RefineSettings::default(),
         }
     }
 }
@@ -74,6 +77,7 @@ impl RunSettings {
         if self.pinn.steps == 0 {
             return Err("steps = 0: give at least one training step (the default is 3000)".into());
         }
+        self.refine.validate()?;
         if let Some(c) = self.cell_m {
             if !(c.is_finite() && c > 0.0) {
                 return Err(format!("cell_m = {c} must be a positive number of metres"));

@@ -195,3 +195,81 @@ pub fn misfit(survey: &Survey, predicted: &[f64], sigma: f64) -> Misfit {
         chi2: chi / n,
     }
 }
+
+/// Fast-marching residuals and rays of velocity models on one grid: the forward
+/// solver of the PINN's refinement stage ([`crate::pinn::refine`]).
+///
+/// `∂T_i/∂s_k` is the weight of node `k` on the steepest-descent ray of pick `i`
+/// ([`eikonal::Ray::weights`]). Picks whose ray cannot be traced keep their residual
+/// but get no sensitivities.
+pub struct FmmMisfit<'a> {
+    survey: &'a Survey,
+    spec: GridSpec,
+    sigma: f64,
+    opts: FmmOptions,
+    ray_opts: eikonal::RayOptions,
+}
+
+impl<'a> FmmMisfit<'a> {
+    /// Misfit of models on `spec` to the picks of `survey`; `sigma` (s) is the default
+    /// for picks without their own.
+    pub fn new(survey: &'a Survey, spec: GridSpec, sigma: f64) -> FmmMisfit<'a> {
+        FmmMisfit {
+            survey,
+            spec,
+            sigma,
+            opts: FmmOptions::default(),
+            ray_opts: eikonal::RayOptions::default(),
+        }
+    }
+
+    /// Residuals and rays of every pick through `velocity` (m/s at the nodes of the
+    /// grid, NaN = air), in file order.
+    pub fn linearise(&self, velocity: &[f64]) -> Result<crate::pinn::Linearisation, VerifyError> {
+        let slowness: Vec<f64> = velocity.iter().map(|&v| 1.0 / v).collect();
+        let (sources, receivers) = self.survey.shot_geometry();
+        let ray_opts = self.ray_opts;
+        let per = eikonal::map_shots(
+            &self.spec,
+            &slowness,
+            &sources,
+            &receivers,
+            &self.opts,
+            |f, r| {
+                let t = f.time_at(r);
+                let ray = eikonal::trace_ray(f, r, &ray_opts).ok();
+                (t, ray)
+            },
+        )?;
+        let n = self.survey.picks.len();
+        let mut out = crate::pinn::Linearisation {
+            residual_s: vec![0.0; n],
+            sigma_s: self
+                .survey
+                .picks
+                .iter()
+                .map(|p| p.sigma_or(self.sigma))
+                .collect(),
+            rays: vec![Vec::new(); n],
+        };
+        for (shot, results) in self.survey.shots.iter().zip(per) {
+            for (&k, (t, ray)) in shot.picks.iter().zip(results) {
+                let t = t.map_err(|error| VerifyError::Shot {
+                    id: shot.id.clone(),
+                    error,
+                })?;
+                out.residual_s[k] = t - self.survey.picks[k].time;
+                if let Some(ray) = ray {
+                    out.rays[k] = ray.weights;
+                }
+            }
+        }
+        Ok(out)
+    }
+}
+
+impl crate::pinn::TimeMisfit for FmmMisfit<'_> {
+    fn linearise(&mut self, velocity: &[f64]) -> Result<crate::pinn::Linearisation, String> {
+        FmmMisfit::linearise(self, velocity).map_err(|e| e.to_string())
+    }
+}

@@ -29,6 +29,7 @@
 mod checkpoint;
 pub mod geom;
 pub mod net;
+pub mod refine;
 mod sampler;
 mod train;
 mod validate;
@@ -37,6 +38,7 @@ use serde::{Deserialize, Serialize};
 
 pub use checkpoint::Checkpoint;
 pub use net::{Activation, MlpShape};
+pub use refine::{refine, Linearisation, RefineLog, RefineOutcome, RefineSettings, TimeMisfit};
 pub use train::{train, TrainedModel};
 
 /// One first-arrival pick. Positions `(x, z)` in m (z elevation), times in s.
@@ -351,6 +353,9 @@ pub enum PinnError {
         "the checkpoint cannot be read: {0}; it is damaged or from another version, start afresh"
     )]
     CheckpointCorrupt(String),
+    /// The forward solver of the refinement stage refused the model.
+    #[error("refining the velocity against fast marching: {0}")]
+    Refine(String),
     /// The thread pool could not be built.
     #[error(
         "cannot start {threads} worker threads: {message}; set threads = 0 to use the default pool"

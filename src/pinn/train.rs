@@ -26,14 +26,14 @@ const CHUNK: usize = 8192;
 /// The trained networks with everything needed to evaluate them.
 #[derive(Clone)]
 pub struct TrainedModel {
-    domain: Domain,
-    start: StartModel,
-    settings: PinnSettings,
-    frame: Frame,
-    tau_shape: MlpShape,
-    vel_shape: MlpShape,
-    tau: Vec<f32>,
-    vel: Vec<f32>,
+    pub(super) domain: Domain,
+    pub(super) start: StartModel,
+    pub(super) settings: PinnSettings,
+    pub(super) frame: Frame,
+    pub(super) tau_shape: MlpShape,
+    pub(super) vel_shape: MlpShape,
+    pub(super) tau: Vec<f32>,
+    pub(super) vel: Vec<f32>,
 }
 
 impl std::fmt::Debug for TrainedModel {
@@ -63,7 +63,7 @@ struct TauBatch {
 }
 
 /// Host arrays of the velocity network inputs for a set of points.
-struct VelBatch {
+pub(super) struct VelBatch {
     n: usize,
     d_in: usize,
     x: Vec<f32>,
@@ -130,7 +130,7 @@ impl TrainedModel {
         b
     }
 
-    fn vel_batch(&self, points: impl Iterator<Item = [f64; 2]>) -> VelBatch {
+    pub(super) fn vel_batch(&self, points: impl Iterator<Item = [f64; 2]>) -> VelBatch {
         let one_d = self.settings.dim == 1;
         let d_in = if one_d { 1 } else { 2 };
         let mut b = VelBatch {
@@ -246,7 +246,7 @@ impl TrainedModel {
         )
     }
 
-    fn vel_net(&self, device: &Device, track: bool) -> NetTensors {
+    pub(super) fn vel_net(&self, device: &Device, track: bool) -> NetTensors {
         NetTensors::new(
             &self.vel_shape,
             &self.vel,
@@ -258,7 +258,7 @@ impl TrainedModel {
     }
 }
 
-fn to_f64(t: Tensor<2>) -> Vec<f64> {
+pub(super) fn to_f64(t: Tensor<2>) -> Vec<f64> {
     t.into_data()
         .try_into_vec::<f32>()
         .unwrap_or_default()
@@ -302,10 +302,22 @@ fn physics(
     f: &Frame,
     device: &Device,
 ) -> (Tensor<2>, [Tensor<2>; 2]) {
-    let n = tb.n;
     let (gtx, gtz) = time_grad(tau, tb, device);
     let grad_t = gtx.clone().mul(gtx).add(gtz.clone().mul(gtz)).sqrt();
+    let (v, dv) = velocity_tangent(vel, vb, f, device);
+    let res = v.mul(grad_t).sub_scalar(1.0);
+    (res, dv)
+}
 
+/// Velocity and its scaled gradient `(L/Δv)∇v` (L half the domain depth) at the points
+/// of a batch.
+pub(super) fn velocity_tangent(
+    vel: &NetTensors,
+    vb: &VelBatch,
+    f: &Frame,
+    device: &Device,
+) -> (Tensor<2>, [Tensor<2>; 2]) {
+    let n = vb.n;
     let xv = tensor2(vb.x.clone(), vb.n, vb.d_in, device);
     let dxv = tensor2(vb.dx.clone(), vb.n, vb.d_in, device);
     let dzv = tensor2(vb.dz.clone(), vb.n, vb.d_in, device);
@@ -325,8 +337,7 @@ fn physics(
     let k = sg.clone().mul(sg.neg().add_scalar(1.0)).mul_scalar(f.hd);
     let vx = k.clone().mul(ox.add(lx));
     let vz = k.mul(oz.add(lz));
-    let res = v.mul(grad_t).sub_scalar(1.0);
-    (res, [vx, vz])
+    (v, [vx, vz])
 }
 
 /// `∂T/∂x`, `∂T/∂z` at the field points: `∇T = ∇T0·(1 + n) + T0·∇n`.

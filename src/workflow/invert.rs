@@ -206,8 +206,10 @@ pub struct InvertReport {
     pub fmm_misfit: Misfit,
     /// Misfit of the network's own travel times.
     pub network_misfit: Misfit,
-    /// RMS of the eikonal residual v·|∇T| − 1 of the trained networks.
+    /// RMS of the eikonal residual v·|∇T| − 1 of the trained networks (PINN stage).
     pub eikonal_rms: f64,
+    /// The refinement stage against fast marching, when it ran.
+    pub refinement: Option<RefineSummary>,
     /// Share of model nodes crossed by at least one ray.
     pub covered_fraction: f64,
     /// Rays the coverage could not trace (left out of it).
@@ -222,6 +224,22 @@ pub struct InvertReport {
     pub warnings: Vec<String>,
     /// Cautions.
     pub caution: &'static str,
+}
+
+/// What the refinement stage did.
+#[derive(Debug, Clone, Serialize)]
+pub struct RefineSummary {
+    /// Iterations run.
+    pub iterations: usize,
+    /// Iteration whose velocity was kept (0: the PINN's own).
+    pub kept: usize,
+    /// Fast-marching χ² of the PINN's velocity, before refinement.
+    pub pinn_chi2: f64,
+    /// Fast-marching χ² of the kept velocity.
+    pub refined_chi2: f64,
+    /// (iteration, χ², χ² the previous iteration's linearisation predicted) of every
+    /// iteration.
+    pub chi2: Vec<(usize, f64, f64)>,
 }
 
 /// Depth to one velocity along the line.
@@ -375,13 +393,57 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertOutcome> {
     if let Some(e) = watch.error {
         eprintln!("warning: {e}");
     }
+    let sigma = s.sigma_ms * 1e-3;
+    // Second stage: the velocity network refined against fast marching on the output grid.
+    let (final_model, refinement) = if s.refine.iterations > 0 {
+        if let Some(b) = &watch.bar {
+            b.reset();
+            b.set_length(s.refine.iterations as u64);
+            b.set_message("refining against fast marching");
+        }
+        let mut oracle = verify::FmmMisfit::new(survey, geo.grid, sigma);
+        let bar = watch.bar.clone();
+        let mut on_iter = |l: &pinn::RefineLog| {
+            if let Some(b) = &bar {
+                b.set_position(l.iteration as u64);
+                b.set_message(format!(
+                    "refine: fast-marching χ² {:.2}  rms {:.2} ms",
+                    l.chi2, l.rms_ms
+                ));
+            }
+        };
+        let r = pinn::refine(
+            &outcome.model,
+            &geo.grid,
+            &s.refine,
+            &mut oracle,
+            &mut on_iter,
+        )
+        .map_err(|e| anyhow::anyhow!("{e}"))?;
+        if let Some(b) = &watch.bar {
+            b.finish_and_clear();
+        }
+        let summary = RefineSummary {
+            iterations: r.history.len().saturating_sub(1),
+            kept: r.kept,
+            pinn_chi2: r.chi2_before,
+            refined_chi2: r.chi2_after,
+            chi2: r
+                .history
+                .iter()
+                .map(|h| (h.iteration, h.chi2, h.predicted_chi2))
+                .collect(),
+        };
+        (r.model, Some(summary))
+    } else {
+        (outcome.model.clone(), None)
+    };
     // Honest verification: the velocity network sampled onto the grid, times by fast marching.
-    let v = outcome.model.velocity_on_grid(&geo.grid);
+    let v = final_model.velocity_on_grid(&geo.grid);
     let model = VelocityGrid { spec: geo.grid, v };
     let opts = FmmOptions::default();
     let fmm_times = verify::predict(survey, &model, &opts)
         .map_err(|e| anyhow::anyhow!("verifying the model: {e}"))?;
-    let sigma = s.sigma_ms * 1e-3;
     let fmm_misfit = verify::misfit(survey, &fmm_times, sigma);
     let network_misfit = verify::misfit(survey, &outcome.predicted_s, sigma);
     let (covered, failed_rays) = coverage(survey, &model, &opts)?;
@@ -393,10 +455,11 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertOutcome> {
     let report = InvertReport {
         tool: format!("slowfield {}", env!("CARGO_PKG_VERSION")),
         picks: job.picks_path.display().to_string(),
-        method: if s.pinn.dim == 1 {
-            "pinn (1-D velocity)"
-        } else {
-            "pinn"
+        method: match (s.pinn.dim == 1, refinement.is_some()) {
+            (true, false) => "pinn (1-D velocity)",
+            (false, false) => "pinn",
+            (true, true) => "pinn (1-D velocity) + refinement against fast marching",
+            (false, true) => "pinn + refinement against fast marching",
         },
         seed: s.pinn.seed,
         n_picks: survey.picks.len(),
@@ -408,6 +471,7 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertOutcome> {
         fmm_misfit,
         network_misfit,
         eikonal_rms: outcome.eikonal_rms,
+        refinement,
         covered_fraction,
         failed_rays,
         interface,
@@ -518,8 +582,14 @@ fn write_outputs(
     let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
     let decor = SectionDecor {
         title: format!(
-            "P-wave velocity (PINN), fast-marching check: RMS {:.2} ms, χ² {:.2}",
-            report.fmm_misfit.rms_ms, report.fmm_misfit.chi2
+            "P-wave velocity (PINN{}), fast-marching check: RMS {:.2} ms, χ² {:.2}",
+            if report.refinement.is_some() {
+                " + refinement"
+            } else {
+                ""
+            },
+            report.fmm_misfit.rms_ms,
+            report.fmm_misfit.chi2
         ),
         surface: Some(&survey.surface),
         receivers: &receivers,
@@ -541,7 +611,7 @@ fn write_outputs(
     let curves = shot_curves(survey, fmm_times);
     figures::traveltime_curves(
         &out.join("traveltimes"),
-        "First arrivals: picks and fast-marching times through the PINN model",
+        "First arrivals: picks and fast-marching times through the final model",
         &curves,
         job.settings.sigma_ms,
     )?;
@@ -674,6 +744,15 @@ fn html_report(r: &InvertReport) -> String {
         ),
     );
     t += &row("eikonal residual RMS", format!("{:.4}", r.eikonal_rms));
+    if let Some(f) = &r.refinement {
+        t += &row(
+            "fast-marching χ²: PINN velocity → refined",
+            format!(
+                "{:.3} → {:.3} ({} refinement iterations, iteration {} kept)",
+                f.pinn_chi2, f.refined_chi2, f.iterations, f.kept
+            ),
+        );
+    }
     t += &row(
         "starting model",
         format!(
@@ -727,9 +806,15 @@ fn html_report(r: &InvertReport) -> String {
 
 /// Prints the end-of-run summary.
 pub fn summary_text(r: &InvertReport, out: &Path) -> String {
+    let refined = r.refinement.as_ref().map_or(String::new(), |f| {
+        format!(
+            "refinement against fast marching: chi2 {:.3} (PINN velocity) -> {:.3} in {} iterations\n",
+            f.pinn_chi2, f.refined_chi2, f.iterations
+        )
+    });
     format!(
-        "{} picks, {} shots; {} steps ({}) in {:.1} s\n\
-         fast-marching check through the PINN velocity: RMS {:.3} ms, chi2 {:.3}\n\
+        "{} picks, {} shots; {} steps ({}) in {:.1} s\n{refined}\
+         fast-marching check through the final velocity: RMS {:.3} ms, chi2 {:.3}\n\
          network's own times: RMS {:.3} ms, chi2 {:.3}; eikonal residual RMS {:.4}\n\
          rays cover {:.0} % of the section; results in {}\n",
         r.n_picks,

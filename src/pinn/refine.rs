@@ -1,0 +1,387 @@
+//! Second stage: the velocity network refined against an external forward solver.
+//!
+//! The PINN's velocity is only as consistent with the picks as its travel-time network
+//! is accurate: where `τ` cannot follow a sharp refractor or a small slow body, the
+//! eikonal residual absorbs the difference and the velocity stays smooth. This stage
+//! keeps the velocity network (mesh-free, the same weights, the same bounds) and trains
+//! it further on the misfit that is reported in the end: times computed by a forward
+//! solver through the network's velocity sampled on a grid. The solver is supplied by
+//! the caller through [`TimeMisfit`] (the workflow plugs in fast marching with ray
+//! sensitivities), so this module knows nothing of files or of the solver.
+//!
+//! Method: a network reparameterisation of travel-time tomography, solved by
+//! Gauss–Newton-style outer iterations. Each outer iteration samples `v` at the grid
+//! nodes and asks the solver for the residuals `T − t` and the ray of every pick; for
+//! first arrivals, Fermat's principle makes the ray's node weights the derivatives of
+//! the time with respect to the node slownesses (Aki & Richards, *Quantitative
+//! Seismology*, ch. 12), so `T(s) ≈ T(s_k) + J·(s − s_k)` around the current model.
+//! The inner steps minimise that linearised `χ² + w_r·R(∇v)` over the network weights:
+//! the surrogate `Σ_k (∂χ²/∂v_k)·v_k(θ)` carries the data gradient into burn's
+//! autodiff, and L-BFGS with a Moré–Thuente line search (Nocedal & Wright 2006,
+//! *Numerical Optimization*, §7.2; the `argmin` crate) takes the steps. The linearised
+//! objective is smooth and cheap (no forward solve until the next outer
+//! iteration), which suits a quasi-Newton method far better than the true one, whose
+//! first-arrival times are only piecewise smooth. The outer iterate with the lowest
+//! true `χ²` is kept, and the stage stops once `χ²` reaches its target (the discrepancy principle: fitting the
+//! picks closer than their uncertainty only fits noise).
+
+use std::cell::RefCell;
+
+use argmin::core::{CostFunction, Executor, Gradient};
+use argmin::solver::linesearch::MoreThuenteLineSearch;
+use argmin::solver::quasinewton::LBFGS;
+use burn::prelude::*;
+use serde::{Deserialize, Serialize};
+
+use super::net::NetTensors;
+use super::train::{to_f64, velocity_tangent, TrainedModel, VelBatch};
+use super::{PinnError, Regulariser};
+use crate::model::GridSpec;
+
+/// Settings of the refinement stage.
+#[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
+#[serde(default, deny_unknown_fields)]
+pub struct RefineSettings {
+    /// Outer iterations, each one forward solve of every shot with rays; 0 switches
+    /// the stage off.
+    pub iterations: usize,
+    /// L-BFGS iterations on the linearised misfit per outer iteration.
+    pub inner_steps: usize,
+    /// Weight of the regulariser (the PINN's kind, `regulariser`) on the grid nodes.
+    pub reg_weight: f64,
+    /// Stop when the solver's χ² reaches this.
+    pub chi2_target: f64,
+}
+
+impl Default for RefineSettings {
+    fn default() -> Self {
+        RefineSettings {
+            iterations: 10,
+            inner_steps: 100,
+            reg_weight: 1e-3,
+            chi2_target: 1.0,
+        }
+    }
+}
+
+impl RefineSettings {
+    /// Checks the values; the message says what to do.
+    pub fn validate(&self) -> Result<(), String> {
+        let pos = |name: &str, v: f64| {
+            if v.is_finite() && v > 0.0 {
+                Ok(())
+            } else {
+                Err(format!("refine.{name} = {v} must be a positive number"))
+            }
+        };
+        pos("chi2_target", self.chi2_target)?;
+        if self.iterations > 0 && self.inner_steps == 0 {
+            return Err("refine.inner_steps = 0: give at least one step per iteration (or refine.iterations = 0 to switch the stage off)".into());
+        }
+        if !(self.reg_weight.is_finite() && self.reg_weight >= 0.0) {
+            return Err(format!(
+                "refine.reg_weight = {} must be zero or a positive number",
+                self.reg_weight
+            ));
+        }
+        Ok(())
+    }
+}
+
+/// A forward solve of every pick through a velocity model, with the sensitivities.
+pub struct Linearisation {
+    /// `T − t` of every pick, s.
+    pub residual_s: Vec<f64>,
+    /// Standard uncertainty of every pick, s.
+    pub sigma_s: Vec<f64>,
+    /// `∂T/∂s_k` of every pick as `(node, m)` pairs (empty where no ray could be traced).
+    pub rays: Vec<Vec<(usize, f64)>>,
+}
+
+impl Linearisation {
+    /// Mean of `((T − t)/σ)²`.
+    pub fn chi2(&self) -> f64 {
+        chi2_of(&self.residual_s, &self.sigma_s)
+    }
+
+    /// RMS of `T − t`, ms.
+    pub fn rms_ms(&self) -> f64 {
+        let n = self.residual_s.len().max(1) as f64;
+        (self.residual_s.iter().map(|r| r * r).sum::<f64>() / n).sqrt() * 1e3
+    }
+}
+
+fn chi2_of(r: &[f64], sigma: &[f64]) -> f64 {
+    let n = r.len().max(1) as f64;
+    r.iter()
+        .zip(sigma)
+        .map(|(r, s)| (r / s).powi(2))
+        .sum::<f64>()
+        / n
+}
+
+/// A forward solver seen from the refinement: velocity at the nodes of a grid
+/// (index `j·nx + i`, `NaN` above the ground) in, residuals and rays out.
+pub trait TimeMisfit {
+    /// Solves every pick through `velocity`; an error stops the stage with its message.
+    fn linearise(&mut self, velocity: &[f64]) -> Result<Linearisation, String>;
+}
+
+/// One outer iteration, as reported to the observer.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct RefineLog {
+    /// Outer iteration (0: the PINN's own velocity).
+    pub iteration: usize,
+    /// Solver χ².
+    pub chi2: f64,
+    /// Solver RMS misfit, ms.
+    pub rms_ms: f64,
+    /// Regulariser on the grid nodes.
+    pub regulariser: f64,
+    /// χ² the linearisation predicted for this model at the end of the previous
+    /// iteration's inner steps (`NaN` at iteration 0).
+    pub predicted_chi2: f64,
+}
+
+/// The result of [`refine`].
+#[derive(Clone, Debug)]
+pub struct RefineOutcome {
+    /// The model with the refined velocity network (the travel-time network is the
+    /// PINN's, unchanged).
+    pub model: TrainedModel,
+    /// Every outer iteration's log.
+    pub history: Vec<RefineLog>,
+    /// χ² of the velocity the stage started from.
+    pub chi2_before: f64,
+    /// χ² of the velocity kept.
+    pub chi2_after: f64,
+    /// Outer iteration whose velocity was kept (0: the starting one).
+    pub kept: usize,
+}
+
+/// Refines the velocity network of `model` against `misfit` on the nodes of `grid`
+/// (see the module documentation). `on_iter` sees every outer iteration.
+pub fn refine(
+    model: &TrainedModel,
+    grid: &GridSpec,
+    settings: &RefineSettings,
+    misfit: &mut dyn TimeMisfit,
+    on_iter: &mut dyn FnMut(&RefineLog),
+) -> Result<RefineOutcome, PinnError> {
+    settings.validate().map_err(|problem| PinnError::Setting {
+        name: "refine",
+        problem,
+        hint: "see the [refine] table of settings.toml",
+    })?;
+    // ground nodes of the grid: where the velocity is sampled and regularised
+    let mut nodes = Vec::new();
+    let mut points = Vec::new();
+    let mut slot = vec![usize::MAX; grid.len()];
+    for j in 0..grid.nz {
+        for i in 0..grid.nx {
+            let p = [grid.x(i), grid.z(j)];
+            if p[1] <= model.domain.elevation(p[0]) + 1e-9 {
+                slot[grid.idx(i, j)] = nodes.len();
+                nodes.push(grid.idx(i, j));
+                points.push(p);
+            }
+        }
+    }
+    let ev = VelEval {
+        model,
+        vb: model.vel_batch(points.iter().copied()),
+        inv_n: 1.0 / nodes.len().max(1) as f64,
+        ad: Device::flex().autodiff(),
+    };
+    let w_r = settings.reg_weight;
+    let mut p: Vec<f64> = model.vel.iter().map(|&x| x as f64).collect();
+    let mut history: Vec<RefineLog> = Vec::new();
+    let mut best = (f64::INFINITY, p.clone(), 0usize);
+    let mut predicted = f64::NAN;
+    for it in 0..=settings.iterations {
+        let (_, _, _, values, reg_value) = ev.forward(&p);
+        let mut on_grid = vec![f64::NAN; grid.len()];
+        for (&k, &val) in nodes.iter().zip(&values) {
+            on_grid[k] = val;
+        }
+        let lin = misfit.linearise(&on_grid).map_err(PinnError::Refine)?;
+        let chi2 = lin.chi2();
+        let log = RefineLog {
+            iteration: it,
+            chi2,
+            rms_ms: lin.rms_ms(),
+            regulariser: reg_value,
+            predicted_chi2: predicted,
+        };
+        on_iter(&log);
+        history.push(log);
+        if !chi2.is_finite() {
+            break;
+        }
+        if chi2 < best.0 {
+            best = (chi2, p.clone(), it);
+        }
+        if chi2 <= settings.chi2_target || it == settings.iterations {
+            break;
+        }
+        // the rays in the slots of the ground nodes
+        let rays: Vec<Vec<(usize, f64)>> = lin
+            .rays
+            .iter()
+            .map(|r| {
+                r.iter()
+                    .filter(|(k, _)| slot[*k] != usize::MAX)
+                    .map(|&(k, w)| (slot[k], w))
+                    .collect()
+            })
+            .collect();
+        let inner = Inner {
+            ev: &ev,
+            rays,
+            residual: lin.residual_s,
+            sigma: lin.sigma_s,
+            s_k: values.iter().map(|&v| 1.0 / v).collect(),
+            w_r,
+            best: RefCell::new((f64::INFINITY, p.clone(), f64::NAN)),
+            last: RefCell::new(None),
+        };
+        let solver = LBFGS::new(MoreThuenteLineSearch::new(), 10);
+        // the line search may give up near the f32 rounding floor: the best point
+        // evaluated is kept either way
+        let _ = Executor::new(&inner, solver)
+            .configure(|st| st.param(p.clone()).max_iters(settings.inner_steps as u64))
+            .run();
+        let (_, bp, bchi) = inner.best.into_inner();
+        p = bp;
+        predicted = bchi;
+    }
+    let mut out = model.clone();
+    out.vel = best.1.iter().map(|&x| x as f32).collect();
+    let chi2_before = history.first().map_or(f64::NAN, |h| h.chi2);
+    let chi2_after = history.get(best.2).map_or(chi2_before, |h| h.chi2);
+    Ok(RefineOutcome {
+        model: out,
+        history,
+        chi2_before,
+        chi2_after,
+        kept: best.2,
+    })
+}
+
+/// The velocity network evaluated at the ground nodes of the grid.
+struct VelEval<'a> {
+    model: &'a TrainedModel,
+    vb: VelBatch,
+    inv_n: f64,
+    ad: Device,
+}
+
+impl VelEval<'_> {
+    /// The network, the velocity and the regulariser (both tracked), and their values.
+    fn forward(&self, p: &[f64]) -> (NetTensors, Tensor<2>, Tensor<1>, Vec<f64>, f64) {
+        let m = self.model;
+        let st = &m.settings;
+        let params: Vec<f32> = p.iter().map(|&x| x as f32).collect();
+        let vel = NetTensors::new(
+            &m.vel_shape,
+            &params,
+            st.activation,
+            st.fast_tanh,
+            &self.ad,
+            true,
+        );
+        let (v, [vx, vz]) = velocity_tangent(&vel, &self.vb, &m.frame, &self.ad);
+        let g2 = vx.clone().mul(vx).add(vz.clone().mul(vz));
+        let reg = match st.regulariser {
+            Regulariser::Smoothness => g2.sum().mul_scalar(self.inv_n),
+            Regulariser::TotalVariation => g2.add_scalar(1e-6).sqrt().sum().mul_scalar(self.inv_n),
+        };
+        let values = to_f64(v.clone().detach());
+        let reg_value = to_f64(reg.clone().detach().reshape([1, 1]))
+            .first()
+            .copied()
+            .unwrap_or(f64::NAN);
+        (vel, v, reg, values, reg_value)
+    }
+}
+
+/// Parameters, objective and gradient of one evaluation.
+type Evaluated = (Vec<f64>, f64, Vec<f64>);
+
+/// The linearised objective of one outer iteration, `χ²_lin(θ) + w_r·R(θ)` with
+/// `χ²_lin` from `T ≈ T_k + J·(1/v(θ) − s_k)`.
+struct Inner<'a> {
+    ev: &'a VelEval<'a>,
+    rays: Vec<Vec<(usize, f64)>>,
+    residual: Vec<f64>,
+    sigma: Vec<f64>,
+    s_k: Vec<f64>,
+    w_r: f64,
+    /// (objective, parameters, χ²_lin) of the best point evaluated
+    best: RefCell<(f64, Vec<f64>, f64)>,
+    /// the last point evaluated: the optimizer asks for the cost and the gradient of
+    /// a point separately
+    last: RefCell<Option<Evaluated>>,
+}
+
+impl Inner<'_> {
+    fn eval(&self, p: &[f64]) -> (f64, Vec<f64>) {
+        if let Some((q, f, g)) = &*self.last.borrow() {
+            if q.as_slice() == p {
+                return (*f, g.clone());
+            }
+        }
+        let (vel, v, reg, vals, reg_value) = self.ev.forward(p);
+        let ds: Vec<f64> = vals
+            .iter()
+            .zip(&self.s_k)
+            .map(|(&v, &s)| 1.0 / v - s)
+            .collect();
+        let n_picks = self.residual.len().max(1) as f64;
+        let mut gs = vec![0.0f64; vals.len()];
+        let mut pred = Vec::with_capacity(self.rays.len());
+        for ((ray, &r), &sig) in self.rays.iter().zip(&self.residual).zip(&self.sigma) {
+            let rl = r + ray.iter().map(|&(k, w)| w * ds[k]).sum::<f64>();
+            pred.push(rl);
+            let c = 2.0 * rl / (sig * sig) / n_picks;
+            for &(k, w) in ray {
+                gs[k] += c * w;
+            }
+        }
+        let chi2 = chi2_of(&pred, &self.sigma);
+        let obj = chi2 + self.w_r * reg_value;
+        // surrogate: Σ_k (∂χ²/∂v_k)·v_k(θ) has the gradient of χ²_lin with respect to θ
+        let gv: Vec<f32> = gs
+            .iter()
+            .zip(&vals)
+            .map(|(&g, &v)| (-g / (v * v)) as f32)
+            .collect();
+        let n = gv.len();
+        let gt = Tensor::<2>::from_data(TensorData::new(gv, [n, 1]), &self.ev.ad);
+        let loss = v.mul(gt).sum().add(reg.mul_scalar(self.w_r));
+        let grads = loss.backward();
+        let g: Vec<f64> = vel.grads(&grads).into_iter().map(f64::from).collect();
+        let mut best = self.best.borrow_mut();
+        if obj.is_finite() && obj < best.0 {
+            *best = (obj, p.to_vec(), chi2);
+        }
+        *self.last.borrow_mut() = Some((p.to_vec(), obj, g.clone()));
+        (obj, g)
+    }
+}
+
+impl CostFunction for &Inner<'_> {
+    type Param = Vec<f64>;
+    type Output = f64;
+    fn cost(&self, p: &Vec<f64>) -> Result<f64, argmin::core::Error> {
+        Ok(self.eval(p).0)
+    }
+}
+
+impl Gradient for &Inner<'_> {
+    type Param = Vec<f64>;
+    type Gradient = Vec<f64>;
+    fn gradient(&self, p: &Vec<f64>) -> Result<Vec<f64>, argmin::core::Error> {
+        Ok(self.eval(p).1)
+    }
+}
