@@ -245,6 +245,16 @@ impl VelocityGrid {
 
     /// Parses model CSV text; `path` only names the source in errors.
     pub fn parse(path: &Path, text: &str) -> Result<VelocityGrid, InputErrors> {
+        let nodes = match plain_nodes(path, text) {
+            Some(nodes) => nodes,
+            None => Self::csv_nodes(path, text)?,
+        };
+        Self::from_nodes(path, &nodes)
+    }
+
+    /// The node lines of a model file read by the general CSV reader, `(line, x, z, v)`
+    /// in file order, with every problem found.
+    fn csv_nodes(path: &Path, text: &str) -> Result<Vec<(u64, f64, f64, f64)>, InputErrors> {
         if text.trim().is_empty() {
             return Err(InputError::file(path, "the file is empty")
                 .hint("a model file has the header 'x,z,velocity_mps' and one line per node")
@@ -303,8 +313,20 @@ impl VelocityGrid {
         if !errors.is_empty() {
             return Err(InputErrors(errors));
         }
-        let (x0, dx, nx) = axis(path, &nodes, |n| n.1, "x")?;
-        let (z0, dz, nz) = axis(path, &nodes, |n| n.2, "z")?;
+        Ok(nodes)
+    }
+
+    /// The grid from the node lines: regular axes, no node twice, no hole under the
+    /// ground.
+    fn from_nodes(
+        path: &Path,
+        nodes: &[(u64, f64, f64, f64)],
+    ) -> Result<VelocityGrid, InputErrors> {
+        let (ax, az) = rayon::join(
+            || axis(path, nodes, |n| n.1, "x"),
+            || axis(path, nodes, |n| n.2, "z"),
+        );
+        let ((x0, dx, nx), (z0, dz, nz)) = (ax?, az?);
         let spec = GridSpec {
             x0,
             z0,
@@ -315,7 +337,7 @@ impl VelocityGrid {
         };
         let mut v = vec![f64::NAN; spec.len()];
         let mut line_of = vec![0u64; spec.len()];
-        for &(line, x, z, vel) in &nodes {
+        for &(line, x, z, vel) in nodes {
             let i = ((x - x0) / dx).round() as usize;
             let j = ((z - z0) / dz).round() as usize;
             let k = spec.idx(i, j);
@@ -384,6 +406,47 @@ impl VelocityGrid {
     }
 }
 
+/// The node lines of a model file in the plain form files written by programs have —
+/// the header, then three numeric fields per line, `\n` line ends, no quotes, spaces,
+/// comments or blank lines (except at the end) — read without the general CSV reader
+/// (whose per-field strings cost about as much as the rest of a `forward` run on a
+/// large model). `None` for any other text and for any line that is not a valid
+/// node: the caller then reads the file with the general reader, which gives such
+/// files the same nodes and line numbers, and words every error.
+fn plain_nodes(path: &Path, text: &str) -> Option<Vec<(u64, f64, f64, f64)>> {
+    if text.starts_with('\u{feff}') || text.contains(['"', '#', '\r']) {
+        return None;
+    }
+    let mut lines = text.trim_end_matches('\n').split('\n').zip(1u64..);
+    let (head, hline) = lines.next()?;
+    let header: Vec<String> = head.split(',').map(str::to_string).collect();
+    if header.len() != 3 {
+        return None;
+    }
+    let map = header_map(path, hline, &header, &["x", "z", "velocity_mps"]).ok()?;
+    let (ix, iz, iv) = (*map.get("x")?, *map.get("z")?, *map.get("velocity_mps")?);
+    let mut nodes = Vec::with_capacity(text.len() / 16);
+    for (l, line) in lines {
+        if l.is_empty() {
+            return None;
+        }
+        let mut f = [0.0f64; 3];
+        let mut fields = l.split(',');
+        for v in &mut f {
+            *v = fields
+                .next()?
+                .parse()
+                .ok()
+                .filter(|v: &f64| v.is_finite())?;
+        }
+        if fields.next().is_some() || f[iv] <= 0.0 {
+            return None;
+        }
+        nodes.push((line, f[ix], f[iz], f[iv]));
+    }
+    (!nodes.is_empty()).then_some(nodes)
+}
+
 /// Coordinates print with up to 4 decimals and no trailing zeros.
 fn fmt_coord(v: f64) -> String {
     let s = format!("{v:.4}");
@@ -400,11 +463,12 @@ fn fmt_coord(v: f64) -> String {
 fn axis(
     path: &Path,
     nodes: &[(u64, f64, f64, f64)],
-    get: impl Fn(&(u64, f64, f64, f64)) -> f64,
+    get: impl Fn(&(u64, f64, f64, f64)) -> f64 + Sync,
     name: &str,
 ) -> Result<(f64, f64, usize), InputError> {
     let mut vals: Vec<(f64, u64)> = nodes.iter().map(|n| (get(n), n.0)).collect();
-    vals.sort_by(|a, b| a.0.total_cmp(&b.0));
+    // equal values in file order (the lines increase), as a stable sort would leave them
+    vals.sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
     let span = vals[vals.len() - 1].0 - vals[0].0;
     let tol = 1e-6 * span.max(1.0);
     let mut distinct: Vec<(f64, u64)> = Vec::new();
@@ -482,6 +546,45 @@ mod tests {
             if !a.is_nan() {
                 assert!((a - b).abs() < 0.006);
             }
+        }
+    }
+
+    #[test]
+    fn plain_reader_gives_the_csv_readers_nodes_and_lines() {
+        let p = Path::new("m.csv");
+        for text in [
+            "x,z,velocity_mps\n0,0,500\n1,0,510\n0,1,520\n1,1,530\n",
+            "z,velocity_mps,x\n0,5e2,0\n0,+510,1\n1,520.25,0\n1,530,1",
+            "X,Z,Velocity_MPS\n0,-0.5,500\n1,-0.5,510\n0,0,520\n1,0,530\n\n\n",
+        ] {
+            let fast = plain_nodes(p, text).expect("plain text");
+            assert_eq!(fast, VelocityGrid::csv_nodes(p, text).unwrap(), "{text:?}");
+        }
+        // anything else is left to the CSV reader, its line numbers and its messages
+        for text in [
+            "",
+            "x,z,velocity_mps\n",
+            "\nx,z,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\n\n0,0,500\n",
+            "# c\nx,z,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\r\n0,0,500\r\n",
+            "x,z,velocity_mps\r0,0,500\r",
+            "x, z, velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\n0, 0,500\n",
+            "x,z,velocity_mps\n\"0\",0,500\n",
+            "\u{feff}x,z,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps,extra\n0,0,500,1\n",
+            "x,z\n0,0\n",
+            "x,x,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\n0,0,500,1\n",
+            "x,z,velocity_mps\n0,0\n",
+            "x,z,velocity_mps\n0,0,-500\n",
+            "x,z,velocity_mps\n0,0,0\n",
+            "x,z,velocity_mps\n0,0,nan\n",
+            "x,z,velocity_mps\n0,0,inf\n",
+            "x,z,velocity_mps\n,,\n0,0,500\n",
+        ] {
+            assert!(plain_nodes(p, text).is_none(), "{text:?}");
         }
     }
 
