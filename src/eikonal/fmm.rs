@@ -275,11 +275,9 @@ impl Ctx {
 
 impl Workspace {
     pub(crate) fn new(spec: &GridSpec) -> Workspace {
-        let nodes = Vec::with_capacity((spec.nx + 2 * PAD) * (spec.nz + 2 * PAD));
-        advise_huge_pages(&nodes);
         Workspace {
             // filled by `solve`, which writes every record once
-            nodes,
+            nodes: Vec::with_capacity((spec.nx + 2 * PAD) * (spec.nz + 2 * PAD)),
             heap: MinHeap {
                 v: Vec::with_capacity(4 * (spec.nx + spec.nz)),
             },
@@ -416,28 +414,6 @@ impl Workspace {
         }
     }
 }
-
-/// Asks Linux to back a large, not yet touched buffer with transparent huge pages
-/// (2 MiB): the march reads neighbours one grid row apart, so on a 4 KiB page each
-/// row of the front is a separate TLB entry.
-#[cfg(target_os = "linux")]
-fn advise_huge_pages<T>(v: &Vec<T>) {
-    const HUGE: usize = 2 << 20;
-    let bytes = v.capacity() * std::mem::size_of::<T>();
-    let start = v.as_ptr() as usize;
-    let (a, e) = (start.next_multiple_of(HUGE), (start + bytes) & !(HUGE - 1));
-    if e > a {
-        // SAFETY: `[a, e)` lies inside the buffer's allocation, and MADV_HUGEPAGE is
-        // only advice about how to back those pages: it changes no content and no
-        // mapping the program relies on. Failure (e.g. THP disabled) is harmless.
-        unsafe {
-            libc::madvise(a as *mut libc::c_void, e - a, libc::MADV_HUGEPAGE);
-        }
-    }
-}
-
-#[cfg(not(target_os = "linux"))]
-fn advise_huge_pages<T>(_: &Vec<T>) {}
 
 /// Upwind data along one axis at record `k` (neighbours `stride` apart, inverse
 /// spacing `ih`, exact `p = ∂T0/∂a`): the lower of the accepted neighbours, and the
