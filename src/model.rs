@@ -67,6 +67,10 @@ use std::path::Path;
 
 use crate::error::{read_text, InputError, InputErrors};
 use crate::survey::{header_map, number, records, Surface};
+use rayon::prelude::*;
+
+/// One node line of a model file: `(line, x, z, velocity)`.
+type NodeLine = (u64, f64, f64, f64);
 
 /// A velocity model: node velocities in m/s on a [`GridSpec`], `NaN` at air nodes.
 #[derive(Debug, Clone, PartialEq)]
@@ -254,7 +258,7 @@ impl VelocityGrid {
 
     /// The node lines of a model file read by the general CSV reader, `(line, x, z, v)`
     /// in file order, with every problem found.
-    fn csv_nodes(path: &Path, text: &str) -> Result<Vec<(u64, f64, f64, f64)>, InputErrors> {
+    fn csv_nodes(path: &Path, text: &str) -> Result<Vec<NodeLine>, InputErrors> {
         if text.trim().is_empty() {
             return Err(InputError::file(path, "the file is empty")
                 .hint("a model file has the header 'x,z,velocity_mps' and one line per node")
@@ -280,7 +284,7 @@ impl VelocityGrid {
             return Err(InputError::file(path, "the file has a header but no nodes").into());
         }
         let mut errors = Vec::new();
-        let mut nodes: Vec<(u64, f64, f64, f64)> = Vec::with_capacity(rows.len());
+        let mut nodes: Vec<NodeLine> = Vec::with_capacity(rows.len());
         for (line, f) in rows {
             if f.len() != header.len() {
                 errors.push(InputError::at(
@@ -318,10 +322,7 @@ impl VelocityGrid {
 
     /// The grid from the node lines: regular axes, no node twice, no hole under the
     /// ground.
-    fn from_nodes(
-        path: &Path,
-        nodes: &[(u64, f64, f64, f64)],
-    ) -> Result<VelocityGrid, InputErrors> {
+    fn from_nodes(path: &Path, nodes: &[NodeLine]) -> Result<VelocityGrid, InputErrors> {
         let (ax, az) = rayon::join(
             || axis(path, nodes, |n| n.1, "x"),
             || axis(path, nodes, |n| n.2, "z"),
@@ -413,20 +414,53 @@ impl VelocityGrid {
 /// large model). `None` for any other text and for any line that is not a valid
 /// node: the caller then reads the file with the general reader, which gives such
 /// files the same nodes and line numbers, and words every error.
-fn plain_nodes(path: &Path, text: &str) -> Option<Vec<(u64, f64, f64, f64)>> {
+fn plain_nodes(path: &Path, text: &str) -> Option<Vec<NodeLine>> {
     if text.starts_with('\u{feff}') || text.contains(['"', '#', '\r']) {
         return None;
     }
-    let mut lines = text.trim_end_matches('\n').split('\n').zip(1u64..);
-    let (head, hline) = lines.next()?;
+    let (head, body) = text.trim_end_matches('\n').split_once('\n')?;
     let header: Vec<String> = head.split(',').map(str::to_string).collect();
     if header.len() != 3 {
         return None;
     }
-    let map = header_map(path, hline, &header, &["x", "z", "velocity_mps"]).ok()?;
-    let (ix, iz, iv) = (*map.get("x")?, *map.get("z")?, *map.get("velocity_mps")?);
+    let map = header_map(path, 1, &header, &["x", "z", "velocity_mps"]).ok()?;
+    let cols = (*map.get("x")?, *map.get("z")?, *map.get("velocity_mps")?);
+    // The node lines in pieces cut at line ends, read in parallel; each piece's
+    // lines are numbered from 0 and shifted once all are read.
+    let n = rayon::current_num_threads().clamp(1, 16);
+    let mut pieces = Vec::with_capacity(n);
+    let mut rest = body;
+    for k in (1..n).rev() {
+        let cut = rest.len() - rest.len() / (k + 1);
+        match rest[cut..].find('\n') {
+            Some(e) if cut > 0 => {
+                pieces.push(&rest[..cut + e]);
+                rest = &rest[cut + e + 1..];
+            }
+            _ => break,
+        }
+    }
+    pieces.push(rest);
+    let read: Vec<Option<(Vec<NodeLine>, u64)>> =
+        pieces.par_iter().map(|p| plain_piece(p, cols)).collect();
     let mut nodes = Vec::with_capacity(text.len() / 16);
-    for (l, line) in lines {
+    // the header is line 1
+    let mut first = 2;
+    for r in read {
+        let (piece, lines) = r?;
+        nodes.extend(piece.into_iter().map(|(l, x, z, v)| (first + l, x, z, v)));
+        first += lines;
+    }
+    Some(nodes)
+}
+
+/// The node lines of one piece of a plain model file ([`plain_nodes`]), lines
+/// numbered from 0, and the number of lines; `None` at the first line that is not a
+/// plain valid node.
+fn plain_piece(text: &str, (ix, iz, iv): (usize, usize, usize)) -> Option<(Vec<NodeLine>, u64)> {
+    let mut nodes = Vec::with_capacity(text.len() / 16);
+    let mut lines = 0;
+    for l in text.split('\n') {
         if l.is_empty() {
             return None;
         }
@@ -442,9 +476,10 @@ fn plain_nodes(path: &Path, text: &str) -> Option<Vec<(u64, f64, f64, f64)>> {
         if fields.next().is_some() || f[iv] <= 0.0 {
             return None;
         }
-        nodes.push((line, f[ix], f[iz], f[iv]));
+        nodes.push((lines, f[ix], f[iz], f[iv]));
+        lines += 1;
     }
-    (!nodes.is_empty()).then_some(nodes)
+    Some((nodes, lines))
 }
 
 /// Coordinates print with up to 4 decimals and no trailing zeros.
@@ -462,8 +497,8 @@ fn fmt_coord(v: f64) -> String {
 /// coordinate, naming the value that breaks the pattern.
 fn axis(
     path: &Path,
-    nodes: &[(u64, f64, f64, f64)],
-    get: impl Fn(&(u64, f64, f64, f64)) -> f64 + Sync,
+    nodes: &[NodeLine],
+    get: impl Fn(&NodeLine) -> f64 + Sync,
     name: &str,
 ) -> Result<(f64, f64, usize), InputError> {
     let mut vals: Vec<(f64, u64)> = nodes.iter().map(|n| (get(n), n.0)).collect();
@@ -552,7 +587,10 @@ mod tests {
     #[test]
     fn plain_reader_gives_the_csv_readers_nodes_and_lines() {
         let p = Path::new("m.csv");
+        // long enough to be read in several pieces
+        let long = VelocityGrid::from_fn(spec(), None, |x, z| 300.0 + 7.0 * x - 20.0 * z).to_csv();
         for text in [
+            long.as_str(),
             "x,z,velocity_mps\n0,0,500\n1,0,510\n0,1,520\n1,1,530\n",
             "z,velocity_mps,x\n0,5e2,0\n0,+510,1\n1,520.25,0\n1,530,1",
             "X,Z,Velocity_MPS\n0,-0.5,500\n1,-0.5,510\n0,0,520\n1,0,530\n\n\n",
@@ -583,6 +621,8 @@ mod tests {
             "x,z,velocity_mps\n0,0,nan\n",
             "x,z,velocity_mps\n0,0,inf\n",
             "x,z,velocity_mps\n,,\n0,0,500\n",
+            &long.replacen("\n", "\n\n", 200),
+            &format!("{long}\n\n0,0,100\n"),
         ] {
             assert!(plain_nodes(p, text).is_none(), "{text:?}");
         }
