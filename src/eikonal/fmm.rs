@@ -380,6 +380,15 @@ impl Workspace {
         let nxp32 = nxp as u32;
         while let Some(k32) = heap.pop(nodes) {
             let k = k32 as usize;
+            // The next node to be accepted is most likely the heap's new top (this
+            // node's neighbours rarely undercut it): start loading the rows of its
+            // stencil while this node is worked on.
+            if let Some(&(_, next)) = heap.v.first() {
+                let next = next as usize;
+                for r in [next - 2 * nxp, next - nxp, next, next + nxp, next + 2 * nxp] {
+                    prefetch(&nodes[r]);
+                }
+            }
             nodes[k].st = KNOWN;
             // Only grid nodes are queued, so i, j are real and every record read by
             // the stencil (up to two away along an axis) lies inside the ring.
@@ -413,6 +422,22 @@ impl Workspace {
             field.tau.extend(row.iter().map(|v| v.tau));
         }
     }
+}
+
+/// Asks the processor to start loading the cache line of `r` (a hint: no effect on
+/// results).
+#[inline(always)]
+fn prefetch(r: &Node) {
+    #[cfg(target_arch = "x86_64")]
+    // SAFETY: a prefetch reads nothing into the program and cannot fault; the pointer
+    // comes from a live reference.
+    unsafe {
+        std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(
+            (r as *const Node).cast::<i8>(),
+        );
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = r;
 }
 
 /// Upwind data along one axis at record `k` (neighbours `stride` apart, inverse
