@@ -67,6 +67,10 @@ use std::path::Path;
 
 use crate::error::{read_text, InputError, InputErrors};
 use crate::survey::{header_map, number, records, Surface};
+use rayon::prelude::*;
+
+/// One node line of a model file: `(line, x, z, velocity)`.
+type NodeLine = (u64, f64, f64, f64);
 
 /// A velocity model: node velocities in m/s on a [`GridSpec`], `NaN` at air nodes.
 #[derive(Debug, Clone, PartialEq)]
@@ -245,6 +249,16 @@ impl VelocityGrid {
 
     /// Parses model CSV text; `path` only names the source in errors.
     pub fn parse(path: &Path, text: &str) -> Result<VelocityGrid, InputErrors> {
+        let nodes = match plain_nodes(path, text) {
+            Some(nodes) => nodes,
+            None => Self::csv_nodes(path, text)?,
+        };
+        Self::from_nodes(path, &nodes)
+    }
+
+    /// The node lines of a model file read by the general CSV reader, `(line, x, z, v)`
+    /// in file order, with every problem found.
+    fn csv_nodes(path: &Path, text: &str) -> Result<Vec<NodeLine>, InputErrors> {
         if text.trim().is_empty() {
             return Err(InputError::file(path, "the file is empty")
                 .hint("a model file has the header 'x,z,velocity_mps' and one line per node")
@@ -270,7 +284,7 @@ impl VelocityGrid {
             return Err(InputError::file(path, "the file has a header but no nodes").into());
         }
         let mut errors = Vec::new();
-        let mut nodes: Vec<(u64, f64, f64, f64)> = Vec::with_capacity(rows.len());
+        let mut nodes: Vec<NodeLine> = Vec::with_capacity(rows.len());
         for (line, f) in rows {
             if f.len() != header.len() {
                 errors.push(InputError::at(
@@ -303,8 +317,17 @@ impl VelocityGrid {
         if !errors.is_empty() {
             return Err(InputErrors(errors));
         }
-        let (x0, dx, nx) = axis(path, &nodes, |n| n.1, "x")?;
-        let (z0, dz, nz) = axis(path, &nodes, |n| n.2, "z")?;
+        Ok(nodes)
+    }
+
+    /// The grid from the node lines: regular axes, no node twice, no hole under the
+    /// ground.
+    fn from_nodes(path: &Path, nodes: &[NodeLine]) -> Result<VelocityGrid, InputErrors> {
+        let (ax, az) = rayon::join(
+            || axis(path, nodes, |n| n.1, "x"),
+            || axis(path, nodes, |n| n.2, "z"),
+        );
+        let ((x0, dx, nx), (z0, dz, nz)) = (ax?, az?);
         let spec = GridSpec {
             x0,
             z0,
@@ -315,7 +338,7 @@ impl VelocityGrid {
         };
         let mut v = vec![f64::NAN; spec.len()];
         let mut line_of = vec![0u64; spec.len()];
-        for &(line, x, z, vel) in &nodes {
+        for &(line, x, z, vel) in nodes {
             let i = ((x - x0) / dx).round() as usize;
             let j = ((z - z0) / dz).round() as usize;
             let k = spec.idx(i, j);
@@ -384,6 +407,81 @@ impl VelocityGrid {
     }
 }
 
+/// The node lines of a model file in the plain form files written by programs have —
+/// the header, then three numeric fields per line, `\n` line ends, no quotes, spaces,
+/// comments or blank lines (except at the end) — read without the general CSV reader
+/// (whose per-field strings cost about as much as the rest of a `forward` run on a
+/// large model). `None` for any other text and for any line that is not a valid
+/// node: the caller then reads the file with the general reader, which gives such
+/// files the same nodes and line numbers, and words every error.
+fn plain_nodes(path: &Path, text: &str) -> Option<Vec<NodeLine>> {
+    if text.starts_with('\u{feff}') || text.contains(['"', '#', '\r']) {
+        return None;
+    }
+    let (head, body) = text.trim_end_matches('\n').split_once('\n')?;
+    let header: Vec<String> = head.split(',').map(str::to_string).collect();
+    if header.len() != 3 {
+        return None;
+    }
+    let map = header_map(path, 1, &header, &["x", "z", "velocity_mps"]).ok()?;
+    let cols = (*map.get("x")?, *map.get("z")?, *map.get("velocity_mps")?);
+    // The node lines in pieces cut at line ends, read in parallel; each piece's
+    // lines are numbered from 0 and shifted once all are read.
+    let n = rayon::current_num_threads().clamp(1, 16);
+    let mut pieces = Vec::with_capacity(n);
+    let mut rest = body;
+    for k in (1..n).rev() {
+        let cut = rest.len() - rest.len() / (k + 1);
+        match rest[cut..].find('\n') {
+            Some(e) if cut > 0 => {
+                pieces.push(&rest[..cut + e]);
+                rest = &rest[cut + e + 1..];
+            }
+            _ => break,
+        }
+    }
+    pieces.push(rest);
+    let read: Vec<Option<(Vec<NodeLine>, u64)>> =
+        pieces.par_iter().map(|p| plain_piece(p, cols)).collect();
+    let mut nodes = Vec::with_capacity(text.len() / 16);
+    // the header is line 1
+    let mut first = 2;
+    for r in read {
+        let (piece, lines) = r?;
+        nodes.extend(piece.into_iter().map(|(l, x, z, v)| (first + l, x, z, v)));
+        first += lines;
+    }
+    Some(nodes)
+}
+
+/// The node lines of one piece of a plain model file ([`plain_nodes`]), lines
+/// numbered from 0, and the number of lines; `None` at the first line that is not a
+/// plain valid node.
+fn plain_piece(text: &str, (ix, iz, iv): (usize, usize, usize)) -> Option<(Vec<NodeLine>, u64)> {
+    let mut nodes = Vec::with_capacity(text.len() / 16);
+    let mut lines = 0;
+    for l in text.split('\n') {
+        if l.is_empty() {
+            return None;
+        }
+        let mut f = [0.0f64; 3];
+        let mut fields = l.split(',');
+        for v in &mut f {
+            *v = fields
+                .next()?
+                .parse()
+                .ok()
+                .filter(|v: &f64| v.is_finite())?;
+        }
+        if fields.next().is_some() || f[iv] <= 0.0 {
+            return None;
+        }
+        nodes.push((lines, f[ix], f[iz], f[iv]));
+        lines += 1;
+    }
+    Some((nodes, lines))
+}
+
 /// Coordinates print with up to 4 decimals and no trailing zeros.
 fn fmt_coord(v: f64) -> String {
     let s = format!("{v:.4}");
@@ -399,12 +497,13 @@ fn fmt_coord(v: f64) -> String {
 /// coordinate, naming the value that breaks the pattern.
 fn axis(
     path: &Path,
-    nodes: &[(u64, f64, f64, f64)],
-    get: impl Fn(&(u64, f64, f64, f64)) -> f64,
+    nodes: &[NodeLine],
+    get: impl Fn(&NodeLine) -> f64 + Sync,
     name: &str,
 ) -> Result<(f64, f64, usize), InputError> {
     let mut vals: Vec<(f64, u64)> = nodes.iter().map(|n| (get(n), n.0)).collect();
-    vals.sort_by(|a, b| a.0.total_cmp(&b.0));
+    // equal values in file order (the lines increase), as a stable sort would leave them
+    vals.sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
     let span = vals[vals.len() - 1].0 - vals[0].0;
     let tol = 1e-6 * span.max(1.0);
     let mut distinct: Vec<(f64, u64)> = Vec::new();
@@ -482,6 +581,50 @@ mod tests {
             if !a.is_nan() {
                 assert!((a - b).abs() < 0.006);
             }
+        }
+    }
+
+    #[test]
+    fn plain_reader_gives_the_csv_readers_nodes_and_lines() {
+        let p = Path::new("m.csv");
+        // long enough to be read in several pieces
+        let long = VelocityGrid::from_fn(spec(), None, |x, z| 300.0 + 7.0 * x - 20.0 * z).to_csv();
+        for text in [
+            long.as_str(),
+            "x,z,velocity_mps\n0,0,500\n1,0,510\n0,1,520\n1,1,530\n",
+            "z,velocity_mps,x\n0,5e2,0\n0,+510,1\n1,520.25,0\n1,530,1",
+            "X,Z,Velocity_MPS\n0,-0.5,500\n1,-0.5,510\n0,0,520\n1,0,530\n\n\n",
+        ] {
+            let fast = plain_nodes(p, text).expect("plain text");
+            assert_eq!(fast, VelocityGrid::csv_nodes(p, text).unwrap(), "{text:?}");
+        }
+        // anything else is left to the CSV reader, its line numbers and its messages
+        for text in [
+            "",
+            "x,z,velocity_mps\n",
+            "\nx,z,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\n\n0,0,500\n",
+            "# c\nx,z,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\r\n0,0,500\r\n",
+            "x,z,velocity_mps\r0,0,500\r",
+            "x, z, velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\n0, 0,500\n",
+            "x,z,velocity_mps\n\"0\",0,500\n",
+            "\u{feff}x,z,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps,extra\n0,0,500,1\n",
+            "x,z\n0,0\n",
+            "x,x,velocity_mps\n0,0,500\n",
+            "x,z,velocity_mps\n0,0,500,1\n",
+            "x,z,velocity_mps\n0,0\n",
+            "x,z,velocity_mps\n0,0,-500\n",
+            "x,z,velocity_mps\n0,0,0\n",
+            "x,z,velocity_mps\n0,0,nan\n",
+            "x,z,velocity_mps\n0,0,inf\n",
+            "x,z,velocity_mps\n,,\n0,0,500\n",
+            &long.replacen("\n", "\n\n", 200),
+            &format!("{long}\n\n0,0,100\n"),
+        ] {
+            assert!(plain_nodes(p, text).is_none(), "{text:?}");
         }
     }
 

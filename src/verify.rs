@@ -6,6 +6,7 @@
 //! top node of a column (a coarse model under a fine surface), the velocity of the
 //! model's top ground is carried up to the surface.
 
+use rayon::prelude::*;
 use serde::Serialize;
 
 use crate::eikonal::{self, EikonalError, FmmOptions};
@@ -97,13 +98,27 @@ pub fn solver_grid(
         nz,
     };
     let model_top = model.surface();
-    Ok(VelocityGrid::from_fn(spec, Some(surface), |x, z| {
-        let zt = model_top.elevation(x);
-        model
-            .sample(x, z.min(zt))
-            .or_else(|| model.sample(x, zt - 1e-9 * m.dz))
-            .unwrap_or(f64::NAN)
-    }))
+    // per column: x, the ground's elevation, the model's top
+    let cols: Vec<(f64, f64, f64)> = (0..nx)
+        .map(|i| {
+            let x = spec.x(i);
+            (x, surface.elevation(x), model_top.elevation(x))
+        })
+        .collect();
+    let mut v = vec![f64::NAN; spec.len()];
+    v.par_chunks_mut(nx).enumerate().for_each(|(j, row)| {
+        let z = spec.z(j);
+        for (out, &(x, ground, zt)) in row.iter_mut().zip(&cols) {
+            // nodes above the ground stay air
+            if z <= ground + 1e-9 {
+                *out = model
+                    .sample(x, z.min(zt))
+                    .or_else(|| model.sample(x, zt - 1e-9 * m.dz))
+                    .unwrap_or(f64::NAN);
+            }
+        }
+    });
+    Ok(VelocityGrid { spec, v })
 }
 
 /// Fast-marching times for every pick of `survey`, in file order, s.

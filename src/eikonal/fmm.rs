@@ -10,6 +10,11 @@ const KNOWN: u8 = 2;
 const AIR: u8 = 3;
 /// Initialised analytically around the source: waits in the heap, never recomputed.
 const FIXED: u8 = 4;
+/// A ghost record outside the grid: never queued, never upwind, not air.
+const EDGE: u8 = 5;
+/// Depth of the ring of [`EDGE`] records around the grid in the [`Workspace`]: the
+/// stencil reads up to two nodes away along each axis without testing for the edge.
+const PAD: usize = 2;
 
 /// First-arrival times of one source on the grid.
 ///
@@ -25,13 +30,15 @@ pub struct TimeField {
 }
 
 impl TimeField {
+    /// A field with no values yet, to be filled by [`Workspace::solve`] (which writes
+    /// every node once, so nothing is written here).
     pub(crate) fn empty(spec: GridSpec) -> TimeField {
         TimeField {
             spec,
             source: Point::new(spec.x0, spec.z0),
             s_src: 0.0,
-            time: vec![f64::INFINITY; spec.len()],
-            tau: vec![f64::INFINITY; spec.len()],
+            time: Vec::with_capacity(spec.len()),
+            tau: Vec::with_capacity(spec.len()),
         }
     }
 
@@ -218,12 +225,16 @@ pub(crate) struct Workspace {
     heap: MinHeap,
 }
 
-/// The march's data at one node: `T`, `τ`, heap slot and state side by side, so that
-/// reading a neighbour touches one cache line.
+/// The march's data at one node: `T`, `τ`, slowness, heap slot and state side by side,
+/// so that reading a neighbour or updating a node touches one cache line (32 bytes,
+/// aligned: two records per line, none straddling two lines).
 #[derive(Debug, Clone, Copy)]
+#[repr(C, align(32))]
 struct Node {
     time: f64,
     tau: f64,
+    /// Slowness, s/m (`+inf` or NaN at air).
+    s: f64,
     /// Heap slot when queued, [`NOT_QUEUED`] otherwise (for every node between
     /// solves: the march runs until the heap is empty).
     pos: u32,
@@ -233,8 +244,8 @@ struct Node {
 /// What the stencil needs about the grid and the source.
 #[derive(Clone, Copy)]
 struct Ctx {
-    nx: usize,
-    nz: usize,
+    /// Row stride of the padded records, `nx + 2·PAD`.
+    nxp: usize,
     x0: f64,
     z0: f64,
     dx: f64,
@@ -265,15 +276,8 @@ impl Ctx {
 impl Workspace {
     pub(crate) fn new(spec: &GridSpec) -> Workspace {
         Workspace {
-            nodes: vec![
-                Node {
-                    time: f64::INFINITY,
-                    tau: f64::INFINITY,
-                    pos: NOT_QUEUED,
-                    st: FAR,
-                };
-                spec.len()
-            ],
+            // filled by `solve`, which writes every record once
+            nodes: Vec::with_capacity((spec.nx + 2 * PAD) * (spec.nz + 2 * PAD)),
             heap: MinHeap {
                 v: Vec::with_capacity(4 * (spec.nx + spec.nz)),
             },
@@ -292,13 +296,31 @@ impl Workspace {
         let spec = field.spec;
         let (nx, nz) = (spec.nx, spec.nz);
         assert_eq!(slowness.len(), spec.len());
-        assert_eq!(self.nodes.len(), spec.len());
-        for (nd, &s) in self.nodes.iter_mut().zip(slowness) {
-            debug_assert_eq!(nd.pos, NOT_QUEUED);
-            nd.time = f64::INFINITY;
-            nd.tau = f64::INFINITY;
-            nd.st = if s < f64::INFINITY { FAR } else { AIR };
+        // The grid's records, row by row, inside a ring of PAD ghost records: node
+        // (i, j) is record (j + PAD)·nxp + i + PAD.
+        let nxp = nx + 2 * PAD;
+        let rec = |i: usize, j: usize| (j + PAD) * nxp + i + PAD;
+        let ghost = Node {
+            time: f64::INFINITY,
+            tau: f64::INFINITY,
+            s: f64::INFINITY,
+            pos: NOT_QUEUED,
+            st: EDGE,
+        };
+        self.nodes.clear();
+        self.nodes.resize(PAD * nxp, ghost);
+        for row in slowness.chunks_exact(nx) {
+            self.nodes.extend([ghost; PAD]);
+            self.nodes.extend(row.iter().map(|&s| Node {
+                time: f64::INFINITY,
+                tau: f64::INFINITY,
+                s,
+                pos: NOT_QUEUED,
+                st: if s < f64::INFINITY { FAR } else { AIR },
+            }));
+            self.nodes.extend([ghost; PAD]);
         }
+        self.nodes.resize((nz + 2 * PAD) * nxp, ghost);
         self.heap.v.clear();
         field.source = source;
         let ground = |k: usize| slowness[k] < f64::INFINITY;
@@ -333,15 +355,15 @@ impl Workspace {
                     let t = r * (s_src + 4.0 * sm + slowness[k]) / 6.0;
                     (t, t / (s_src * r))
                 };
-                let nd = &mut self.nodes[k];
+                let r = rec(i, j);
+                let nd = &mut self.nodes[r];
                 (nd.time, nd.tau, nd.st) = (t, tau, FIXED);
-                self.heap.set(&mut self.nodes, t, k as u32);
+                self.heap.set(&mut self.nodes, t, r as u32);
             }
         }
 
         let c = Ctx {
-            nx,
-            nz,
+            nxp,
             x0: spec.x0,
             z0: spec.z0,
             dx: spec.dx,
@@ -354,13 +376,26 @@ impl Workspace {
             second: opts.order == Order::Second,
         };
         let (nodes, heap) = (&mut self.nodes[..], &mut self.heap);
+        // fits: `validate` caps the padded record count at u32::MAX
+        let nxp32 = nxp as u32;
         while let Some(k32) = heap.pop(nodes) {
             let k = k32 as usize;
+            // The next node to be accepted is most likely the heap's new top (this
+            // node's neighbours rarely undercut it): start loading the rows of its
+            // stencil while this node is worked on.
+            if let Some(&(_, next)) = heap.v.first() {
+                let next = next as usize;
+                for r in [next - 2 * nxp, next - nxp, next, next + nxp, next + 2 * nxp] {
+                    prefetch(&nodes[r]);
+                }
+            }
             nodes[k].st = KNOWN;
-            let (i, j) = (k % nx, k / nx);
+            // Only grid nodes are queued, so i, j are real and every record read by
+            // the stencil (up to two away along an axis) lies inside the ring.
+            let (i, j) = ((k32 % nxp32) as usize - PAD, (k32 / nxp32) as usize - PAD);
             let mut visit = |n: usize, ni: usize, nj: usize| {
                 if nodes[n].st <= TRIAL {
-                    if let Some((tau, tn)) = update(&c, nodes, slowness[n], n, ni, nj) {
+                    if let Some((tau, tn)) = update(&c, nodes, n, ni, nj) {
                         // The value from the latest set of accepted neighbours replaces
                         // the old one (it may be larger: a missing axis read as
                         // `∂τ/∂a = 0` is only a guess).
@@ -372,68 +407,68 @@ impl Workspace {
                     }
                 }
             };
-            if i > 0 {
-                visit(k - 1, i - 1, j);
-            }
-            if i + 1 < nx {
-                visit(k + 1, i + 1, j);
-            }
-            if j > 0 {
-                visit(k - nx, i, j - 1);
-            }
-            if j + 1 < nz {
-                visit(k + nx, i, j + 1);
-            }
+            // ghost neighbours fail the state test (the index wraps but is not used)
+            visit(k - 1, i.wrapping_sub(1), j);
+            visit(k + 1, i + 1, j);
+            visit(k - nxp, i, j.wrapping_sub(1));
+            visit(k + nxp, i, j + 1);
         }
         debug_assert!(heap.v.is_empty());
-        for ((t, ta), v) in field.time.iter_mut().zip(&mut field.tau).zip(&self.nodes) {
-            *t = v.time;
-            *ta = v.tau;
+        field.time.clear();
+        field.tau.clear();
+        for row in self.nodes.chunks_exact(nxp).skip(PAD).take(nz) {
+            let row = &row[PAD..PAD + nx];
+            field.time.extend(row.iter().map(|v| v.time));
+            field.tau.extend(row.iter().map(|v| v.tau));
         }
     }
 }
 
-/// Upwind data along one axis at node `k` (position `pos` of `len` along the axis,
-/// neighbours `stride` apart, inverse spacing `ih`, exact `p = ∂T0/∂a`).
+/// Asks the processor to start loading the cache line of `r` (a hint: no effect on
+/// results).
 #[inline(always)]
-#[allow(clippy::too_many_arguments)]
-fn axis(
-    nd: &[Node],
-    k: usize,
-    pos: usize,
-    len: usize,
-    stride: usize,
-    ih: f64,
-    p: f64,
-    t0: f64,
-) -> Option<Axis> {
-    let lo = (pos > 0 && nd[k - stride].st == KNOWN).then(|| k - stride);
-    let hi = (pos + 1 < len && nd[k + stride].st == KNOWN).then(|| k + stride);
-    let (n1, sigma, n2) = match (lo, hi) {
-        (None, None) => return None,
-        (Some(a), None) => (a, 1.0, (pos >= 2).then(|| k - 2 * stride)),
-        (None, Some(b)) => (b, -1.0, (pos + 2 < len).then(|| k + 2 * stride)),
-        (Some(a), Some(b)) => {
-            if nd[a].time <= nd[b].time {
-                (a, 1.0, (pos >= 2).then(|| k - 2 * stride))
-            } else {
-                (b, -1.0, (pos + 2 < len).then(|| k + 2 * stride))
-            }
-        }
+fn prefetch(r: &Node) {
+    #[cfg(target_arch = "x86_64")]
+    // SAFETY: a prefetch reads nothing into the program and cannot fault; the pointer
+    // comes from a live reference.
+    unsafe {
+        std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(
+            (r as *const Node).cast::<i8>(),
+        );
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = r;
+}
+
+/// Upwind data along one axis at record `k` (neighbours `stride` apart, inverse
+/// spacing `ih`, exact `p = ∂T0/∂a`): the lower of the accepted neighbours, and the
+/// second-order stencil where the node beyond it is accepted and not later.
+#[inline(always)]
+fn axis(nd: &[Node], k: usize, stride: usize, ih: f64, p: f64, t0: f64) -> Option<Axis> {
+    let (lo, hi) = (&nd[k - stride], &nd[k + stride]);
+    let (lo_known, hi_known) = (lo.st == KNOWN, hi.st == KNOWN);
+    if !(lo_known || hi_known) {
+        return None;
+    }
+    // the low side when it alone is accepted, or both are and it is not later
+    let low = lo_known && (!hi_known || lo.time <= hi.time);
+    let (n1, sigma, n2) = if low {
+        (lo, 1.0, &nd[k - 2 * stride])
+    } else {
+        (hi, -1.0, &nd[k + 2 * stride])
     };
-    let (time1, tau1) = (nd[n1].time, nd[n1].tau);
+    let (time1, tau1) = (n1.time, n1.tau);
     // D τ = σ(α τ − β);  ∂T/∂a = (p + σ T0 α) τ − σ T0 β
     let a1 = p + sigma * t0 * ih;
     let b1 = -sigma * t0 * tau1 * ih;
-    let (a2, b2) = match n2 {
-        Some(n2) if nd[n2].st == KNOWN && nd[n2].time <= time1 => {
-            let tau2 = nd[n2].tau;
-            (
-                p + sigma * t0 * 1.5 * ih,
-                -sigma * t0 * (2.0 * tau1 - 0.5 * tau2) * ih,
-            )
-        }
-        _ => (a1, b1),
+    let (a2, b2) = if n2.st == KNOWN && n2.time <= time1 {
+        let tau2 = n2.tau;
+        (
+            p + sigma * t0 * 1.5 * ih,
+            -sigma * t0 * (2.0 * tau1 - 0.5 * tau2) * ih,
+        )
+    } else {
+        (a1, b1)
     };
     Some(Axis {
         sigma,
@@ -471,12 +506,13 @@ fn best_tau(ax: Option<(f64, f64, f64)>, az: Option<(f64, f64, f64)>, s: f64) ->
     best
 }
 
-/// New `(τ, T)` at node `n = (i, j)` from its accepted neighbours.
+/// New `(τ, T)` at record `n`, node `(i, j)`, from its accepted neighbours.
 #[inline(always)]
-fn update(c: &Ctx, nd: &[Node], s: f64, n: usize, i: usize, j: usize) -> Option<(f64, f64)> {
+fn update(c: &Ctx, nd: &[Node], n: usize, i: usize, j: usize) -> Option<(f64, f64)> {
+    let s = nd[n].s;
     let (t0, px, pz) = c.t0(i, j);
-    let mut ax = axis(nd, n, i, c.nx, 1, c.idx, px, t0);
-    let mut az = axis(nd, n, j, c.nz, c.nx, c.idz, pz, t0);
+    let mut ax = axis(nd, n, 1, c.idx, px, t0);
+    let mut az = axis(nd, n, c.nxp, c.idz, pz, t0);
     if ax.is_none() && az.is_none() {
         return None;
     }
@@ -495,24 +531,23 @@ fn update(c: &Ctx, nd: &[Node], s: f64, n: usize, i: usize, j: usize) -> Option<
     // The same reading serves a node whose neighbour on the source side is air (a
     // surface sloping away from the source): the wave runs along the surface there, and
     // `∂T/∂a = 0` would make it too slow by O(1) on a staircase of surface nodes.
-    let air_toward = |p: f64, pos: usize, len: usize, stride: usize| {
+    let air_toward = |p: f64, stride: usize| {
         if p < 0.0 {
-            pos + 1 < len && nd[n + stride].st == AIR
+            nd[n + stride].st == AIR
         } else if p > 0.0 {
-            pos > 0 && nd[n - stride].st == AIR
+            nd[n - stride].st == AIR
         } else {
             false
         }
     };
     if ax.is_none()
-        && ((c.x0 + i as f64 * c.dx - c.sx).abs() <= 0.5 * c.dx * (1.0 + 1e-9)
-            || air_toward(px, i, c.nx, 1))
+        && ((c.x0 + i as f64 * c.dx - c.sx).abs() <= 0.5 * c.dx * (1.0 + 1e-9) || air_toward(px, 1))
     {
         ax = Some(virt(px));
     }
     if az.is_none()
         && ((c.z0 + j as f64 * c.dz - c.sz).abs() <= 0.5 * c.dz * (1.0 + 1e-9)
-            || air_toward(pz, j, c.nz, c.nx))
+            || air_toward(pz, c.nxp))
     {
         az = Some(virt(pz));
     }

@@ -237,10 +237,11 @@ pub fn validate(spec: &GridSpec, slowness: &[f64]) -> Result<(), EikonalError> {
         || !ok_h(spec.dz)
         || !spec.x0.is_finite()
         || !spec.z0.is_finite()
-        || spec
-            .nx
-            .checked_mul(spec.nz)
-            .is_none_or(|n| n > u32::MAX as usize)
+        // the solver numbers its records (the grid plus a ring of 2) with u32
+        || (spec.nx.checked_add(4))
+            .zip(spec.nz.checked_add(4))
+            .and_then(|(a, b)| a.checked_mul(b))
+            .is_none_or(|n| n >= u32::MAX as usize)
     {
         return Err(EikonalError::BadGrid {
             nx: spec.nx,
