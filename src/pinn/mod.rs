@@ -27,6 +27,7 @@
 //! ([`net`]). Adam (Kingma & Ba 2015, ICLR) with an exponentially decaying step.
 
 mod checkpoint;
+mod fused;
 pub mod geom;
 pub mod net;
 mod sampler;

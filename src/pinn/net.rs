@@ -15,6 +15,8 @@
 
 use burn::prelude::*;
 use burn::tensor::activation::sigmoid;
+
+use super::fused::{self, Act};
 use burn::tensor::Gradients;
 use rand::Rng;
 use serde::{Deserialize, Serialize};
@@ -93,6 +95,7 @@ pub struct NetTensors {
     shape: MlpShape,
     act: Activation,
     fast_tanh: bool,
+    fused: bool,
 }
 
 impl NetTensors {
@@ -131,7 +134,41 @@ impl NetTensors {
             shape: shape.clone(),
             act,
             fast_tanh,
+            fused: true,
         }
+    }
+
+    /// With `false`, layers are built from the backend's tensor operations instead of
+    /// the fused flex kernel ([`super::fused`]); the results are the same up to `f32`
+    /// rounding. The tensor-operation form is what other backends use, and the
+    /// reference the fused kernel is tested against.
+    pub fn with_fused(mut self, fused: bool) -> NetTensors {
+        self.fused = fused;
+        self
+    }
+
+    fn fused_act(&self, l: usize) -> Act {
+        if l + 1 == self.w.len() {
+            return Act::Identity;
+        }
+        match self.act {
+            Activation::Tanh if self.fast_tanh => Act::FastTanh,
+            Activation::Tanh => Act::Tanh,
+            Activation::Sine => Act::Sine,
+        }
+    }
+
+    /// Runs the layers on the stacked batch `[(1 + K)·n, d_in]` (value rows first, then
+    /// each tangent block) with the fused kernel; `None` when the backend has none.
+    fn forward_fused(&self, h: Tensor<2>, n: usize) -> Option<Tensor<2>> {
+        if !self.fused {
+            return None;
+        }
+        let mut h = h;
+        for l in 0..self.w.len() {
+            h = fused::layer(&h, &self.w[l], &self.b[l], n, self.fused_act(l))?;
+        }
+        Some(h)
     }
 
     /// The gradient of the last backward pass, flattened like the parameters (zeros
@@ -193,6 +230,10 @@ impl NetTensors {
 
     /// Values only.
     pub fn forward(&self, x: Tensor<2>) -> Tensor<2> {
+        let rows = x.dims()[0];
+        if let Some(y) = self.forward_fused(x.clone(), rows) {
+            return y;
+        }
         let n = self.w.len();
         let mut h = x;
         for l in 0..n {
@@ -205,6 +246,25 @@ impl NetTensors {
     /// Values and the tangents `d(out)/dθ` for each input direction `dx[k]` (same
     /// rows as `x`).
     pub fn forward_tangent(&self, x: Tensor<2>, dx: Vec<Tensor<2>>) -> (Tensor<2>, Vec<Tensor<2>>) {
+        let rows = x.dims()[0];
+        let k = dx.len();
+        if self.fused {
+            let mut parts = Vec::with_capacity(k + 1);
+            parts.push(x.clone());
+            parts.extend(dx.iter().cloned());
+            let stacked = if k == 0 {
+                x.clone()
+            } else {
+                Tensor::cat(parts, 0)
+            };
+            if let Some(y) = self.forward_fused(stacked, rows) {
+                let value = y.clone().narrow(0, 0, rows);
+                let tangents = (1..=k)
+                    .map(|j| y.clone().narrow(0, j * rows, rows))
+                    .collect();
+                return (value, tangents);
+            }
+        }
         let n = self.w.len();
         let mut h = x;
         let mut d = dx;
