@@ -287,9 +287,10 @@ fn to_vec(t: Tensor<2>) -> Vec<f64> {
         .collect()
 }
 
-/// The fused flex layer kernel against the same network built from tensor operations:
-/// values, both tangents and the weight gradient of a loss that uses all of them, for
-/// every activation, on the autodiff and on the plain device.
+/// The fused flex layer kernels against the same network built from tensor operations:
+/// values, tangents and the weight gradient of a loss that uses all of them, for every
+/// activation, with one tangent direction (stacked forward tangents) and two (for tanh:
+/// the reverse sweep for the input gradient), on the autodiff and on the plain device.
 #[test]
 fn fused_layers_match_tensor_operations() {
     let cases = [
@@ -310,12 +311,15 @@ fn fused_layers_match_tensor_operations() {
             let net = NetTensors::new(&shape, &p, act, fast, dev, track).with_fused(fused);
             let t = |v: &Vec<f32>| Tensor::<2>::from_data(TensorData::new(v.clone(), [n, 3]), dev);
             let (y, d) = net.forward_tangent(t(&x), vec![t(&d1), t(&d2)]);
+            let (y1, e) = net.forward_tangent(t(&x), vec![t(&d2)]);
             let y_only = net.forward(t(&x));
             let mut out = vec![
                 to_vec(y.clone()),
                 to_vec(d[0].clone()),
                 to_vec(d[1].clone()),
                 to_vec(y_only.clone()),
+                to_vec(y1.clone()),
+                to_vec(e[0].clone()),
             ];
             if track {
                 let loss = y
@@ -324,7 +328,8 @@ fn fused_layers_match_tensor_operations() {
                     .sum()
                     .add(d[0].clone().mul(d[1].clone()).sum())
                     .add(d[1].clone().mul(d[1].clone()).sum().mul_scalar(0.5))
-                    .add(y_only.sum());
+                    .add(y_only.sum())
+                    .add(e[0].clone().mul(y1).sum());
                 let g = net.grads(&loss.backward());
                 out.push(g.iter().map(|&v| v as f64).collect());
             }

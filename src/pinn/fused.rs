@@ -372,6 +372,189 @@ pub(crate) fn layer(
     None
 }
 
+/// What the reverse pass of [`back_layer`] keeps.
+#[derive(Clone, Debug)]
+struct SavedBack {
+    /// `u` (`[1 or n, w]`), `W` (`[d_in, w]`), `y` (`[n, w]`), `v = u ⊙ φ'` (`[n, w]`)
+    u: FlexTensor,
+    w: FlexTensor,
+    y: FlexTensor,
+    v: FlexTensor,
+    act: Act,
+}
+
+#[derive(Debug)]
+struct BackLayer;
+
+/// A function of the activation's value.
+type OfValue = fn(f32) -> f32;
+
+/// `φ'` and `dφ'/dy` as functions of the value `y` (tanh only; see [`back_layer`]).
+fn slope_of_value(act: Act) -> (OfValue, OfValue) {
+    match act {
+        Act::FastTanh | Act::Tanh => (|y| -(y * y) + 1.0, |y| -2.0 * y),
+        _ => (|_| 1.0, |_| 0.0),
+    }
+}
+
+fn back_values(u: &[f32], y: &[f32], w: usize, act: Act) -> Vec<f32> {
+    let (slope, _) = slope_of_value(act);
+    if u.len() == w {
+        y.chunks_exact(w)
+            .flat_map(|yr| yr.iter().zip(u).map(move |(&yv, &uv)| uv * slope(yv)))
+            .collect()
+    } else {
+        u.iter().zip(y).map(|(&uv, &yv)| uv * slope(yv)).collect()
+    }
+}
+
+impl Backward<Flex, 3> for BackLayer {
+    type State = SavedBack;
+
+    fn backward(self, ops: Ops<SavedBack, 3>, grads: &mut Gradients, _: &mut Checkpointer) {
+        let [pu, pw, py] = ops.parents;
+        let g = grads.consume::<Flex>(&ops.node);
+        let st = ops.state;
+        let [n, width] = dims(&st.y);
+        let d_in = dims(&st.w)[0];
+        let (gs, ws) = (contiguous(&g), contiguous(&st.w));
+        // ∂L/∂v = G·W
+        let gv = matmul(
+            n,
+            width,
+            d_in,
+            Mat(&gs, d_in as isize, 1),
+            Mat(&ws, width as isize, 1),
+        );
+        let (slope, dslope) = slope_of_value(st.act);
+        let ys = contiguous(&st.y);
+        let us = contiguous(&st.u);
+        if let Some(node) = pw {
+            // ∂L/∂W = Gᵀ·v
+            let vs = contiguous(&st.v);
+            let gw = matmul(
+                d_in,
+                width,
+                n,
+                Mat(&gs, 1, d_in as isize),
+                Mat(&vs, width as isize, 1),
+            );
+            grads.register::<Flex>(node.id, flex(gw, d_in, width));
+        }
+        if let Some(node) = pu {
+            let gu: Vec<f32> = gv
+                .iter()
+                .zip(ys.iter())
+                .map(|(&gv, &yv)| gv * slope(yv))
+                .collect();
+            let gu = if us.len() == width {
+                let mut sum = vec![0.0f32; width];
+                for row in gu.chunks_exact(width) {
+                    for (s, &v) in sum.iter_mut().zip(row) {
+                        *s += v;
+                    }
+                }
+                flex(sum, 1, width)
+            } else {
+                flex(gu, n, width)
+            };
+            grads.register::<Flex>(node.id, gu);
+        }
+        if let Some(node) = py {
+            let gy: Vec<f32> = if us.len() == width {
+                gv.chunks_exact(width)
+                    .zip(ys.chunks_exact(width))
+                    .flat_map(|(gr, yr)| {
+                        gr.iter()
+                            .zip(yr)
+                            .zip(us.iter())
+                            .map(|((&g, &y), &u)| g * u * dslope(y))
+                    })
+                    .collect()
+            } else {
+                gv.iter()
+                    .zip(ys.iter())
+                    .zip(us.iter())
+                    .map(|((&g, &y), &u)| g * u * dslope(y))
+                    .collect()
+            };
+            grads.register::<Flex>(node.id, flex(gy, n, width));
+        }
+    }
+}
+
+/// One step of the reverse sweep for the input gradient of a scalar network: from
+/// `u = ∂out/∂y` at a tanh layer's output `y = φ(h·W + b)` to
+/// `∂out/∂h = (u ⊙ φ'(a))·Wᵀ`, with `φ' = 1 − y²` a function of `y`, so that the
+/// training pass reaches the weights through `y` too. `u` is `[n, w]` or one row
+/// `[1, w]` used for every point (the output layer's weights). `None` off the flex
+/// backend or for an activation whose slope is not a function of its value.
+pub(crate) fn back_layer(
+    u: &Tensor<2>,
+    w: &Tensor<2>,
+    y: &Tensor<2>,
+    act: Act,
+) -> Option<Tensor<2>> {
+    let [n, width] = y.dims();
+    let [_, w_out] = w.dims();
+    let [u_rows, u_w] = u.dims();
+    if !matches!(act, Act::FastTanh | Act::Tanh)
+        || w_out != width
+        || u_w != width
+        || !(u_rows == n || u_rows == 1)
+    {
+        return None;
+    }
+    let run = |us: &FlexTensor, ws: &FlexTensor, ys: &FlexTensor| {
+        let d_in = dims(ws)[0];
+        let v = back_values(&contiguous(us), &contiguous(ys), width, act);
+        let out = matmul(
+            n,
+            d_in,
+            width,
+            Mat(&v, width as isize, 1),
+            Mat(&contiguous(ws), 1, width as isize),
+        );
+        (flex(v, n, width), flex(out, n, d_in))
+    };
+    if let (Ok(ut), Ok(wt), Ok(yt)) = (
+        u.clone().try_into_primitive::<Ad>(),
+        w.clone().try_into_primitive::<Ad>(),
+        y.clone().try_into_primitive::<Ad>(),
+    ) {
+        let (up, ug) = ut.into_parts();
+        let (wp, wg) = wt.into_parts();
+        let (yp, yg) = yt.into_parts();
+        let prep = BackLayer
+            .prepare::<NoCheckpointing>([ug, wg, yg])
+            .compute_bound()
+            .stateful();
+        let (v, out) = run(&up, &wp, &yp);
+        let t = match prep {
+            OpsKind::Tracked(prep) => {
+                let saved = SavedBack {
+                    u: up,
+                    w: wp,
+                    y: yp,
+                    v,
+                    act,
+                };
+                prep.finish(saved, out)
+            }
+            OpsKind::UnTracked(prep) => prep.finish(out),
+        };
+        return Some(Tensor::from_primitive::<Ad>(t));
+    }
+    if let (Ok(up), Ok(wp), Ok(yp)) = (
+        u.clone().try_into_primitive::<Flex>(),
+        w.clone().try_into_primitive::<Flex>(),
+        y.clone().try_into_primitive::<Flex>(),
+    ) {
+        return Some(Tensor::from_primitive::<Flex>(run(&up, &wp, &yp).1));
+    }
+    None
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
