@@ -380,31 +380,24 @@ struct SavedBack {
     w: FlexTensor,
     y: FlexTensor,
     v: FlexTensor,
-    act: Act,
 }
 
 #[derive(Debug)]
 struct BackLayer;
 
-/// A function of the activation's value.
-type OfValue = fn(f32) -> f32;
-
-/// `φ'` and `dφ'/dy` as functions of the value `y` (tanh only; see [`back_layer`]).
-fn slope_of_value(act: Act) -> (OfValue, OfValue) {
-    match act {
-        Act::FastTanh | Act::Tanh => (|y| -(y * y) + 1.0, |y| -2.0 * y),
-        _ => (|_| 1.0, |_| 0.0),
-    }
-}
-
-fn back_values(u: &[f32], y: &[f32], w: usize, act: Act) -> Vec<f32> {
-    let (slope, _) = slope_of_value(act);
+/// `u ⊙ (1 − y²)`, `u` one row for all or a row per point.
+fn back_values(u: &[f32], y: &[f32], w: usize) -> Vec<f32> {
     if u.len() == w {
-        y.chunks_exact(w)
-            .flat_map(|yr| yr.iter().zip(u).map(move |(&yv, &uv)| uv * slope(yv)))
-            .collect()
+        let mut v = Vec::with_capacity(y.len());
+        for yr in y.chunks_exact(w) {
+            v.extend(yr.iter().zip(u).map(|(&yv, &uv)| uv * (-(yv * yv) + 1.0)));
+        }
+        v
     } else {
-        u.iter().zip(y).map(|(&uv, &yv)| uv * slope(yv)).collect()
+        u.iter()
+            .zip(y)
+            .map(|(&uv, &yv)| uv * (-(yv * yv) + 1.0))
+            .collect()
     }
 }
 
@@ -426,7 +419,6 @@ impl Backward<Flex, 3> for BackLayer {
             Mat(&gs, d_in as isize, 1),
             Mat(&ws, width as isize, 1),
         );
-        let (slope, dslope) = slope_of_value(st.act);
         let ys = contiguous(&st.y);
         let us = contiguous(&st.u);
         if let Some(node) = pw {
@@ -441,43 +433,47 @@ impl Backward<Flex, 3> for BackLayer {
             );
             grads.register::<Flex>(node.id, flex(gw, d_in, width));
         }
-        if let Some(node) = pu {
-            let gu: Vec<f32> = gv
-                .iter()
-                .zip(ys.iter())
-                .map(|(&gv, &yv)| gv * slope(yv))
-                .collect();
-            let gu = if us.len() == width {
-                let mut sum = vec![0.0f32; width];
-                for row in gu.chunks_exact(width) {
-                    for (s, &v) in sum.iter_mut().zip(row) {
-                        *s += v;
-                    }
-                }
-                flex(sum, 1, width)
+        // ∂L/∂u = ∂L/∂v ⊙ (1 − y²), ∂L/∂y = ∂L/∂v ⊙ u ⊙ (−2y)
+        let one_row = us.len() == width;
+        let mut gu = if one_row {
+            vec![0.0f32; width]
+        } else {
+            Vec::with_capacity(n * width)
+        };
+        let mut gy = Vec::with_capacity(if py.is_some() { n * width } else { 0 });
+        for (i, (gr, yr)) in gv
+            .chunks_exact(width)
+            .zip(ys.chunks_exact(width))
+            .enumerate()
+        {
+            let ur = if one_row {
+                &us[..]
             } else {
-                flex(gu, n, width)
+                &us[i * width..(i + 1) * width]
             };
-            grads.register::<Flex>(node.id, gu);
+            if pu.is_some() {
+                if one_row {
+                    for ((acc, &g), &y) in gu.iter_mut().zip(gr).zip(yr) {
+                        *acc += g * (-(y * y) + 1.0);
+                    }
+                } else {
+                    gu.extend(gr.iter().zip(yr).map(|(&g, &y)| g * (-(y * y) + 1.0)));
+                }
+            }
+            if py.is_some() {
+                gy.extend(
+                    gr.iter()
+                        .zip(yr)
+                        .zip(ur)
+                        .map(|((&g, &y), &u)| g * u * (-2.0 * y)),
+                );
+            }
+        }
+        if let Some(node) = pu {
+            let rows = if one_row { 1 } else { n };
+            grads.register::<Flex>(node.id, flex(gu, rows, width));
         }
         if let Some(node) = py {
-            let gy: Vec<f32> = if us.len() == width {
-                gv.chunks_exact(width)
-                    .zip(ys.chunks_exact(width))
-                    .flat_map(|(gr, yr)| {
-                        gr.iter()
-                            .zip(yr)
-                            .zip(us.iter())
-                            .map(|((&g, &y), &u)| g * u * dslope(y))
-                    })
-                    .collect()
-            } else {
-                gv.iter()
-                    .zip(ys.iter())
-                    .zip(us.iter())
-                    .map(|((&g, &y), &u)| g * u * dslope(y))
-                    .collect()
-            };
             grads.register::<Flex>(node.id, flex(gy, n, width));
         }
     }
@@ -507,7 +503,7 @@ pub(crate) fn back_layer(
     }
     let run = |us: &FlexTensor, ws: &FlexTensor, ys: &FlexTensor| {
         let d_in = dims(ws)[0];
-        let v = back_values(&contiguous(us), &contiguous(ys), width, act);
+        let v = back_values(&contiguous(us), &contiguous(ys), width);
         let out = matmul(
             n,
             d_in,
@@ -537,7 +533,6 @@ pub(crate) fn back_layer(
                     w: wp,
                     y: yp,
                     v,
-                    act,
                 };
                 prep.finish(saved, out)
             }
