@@ -68,15 +68,61 @@ fn fast_tanh(a: f32) -> f32 {
     1.0 - 2.0 / (ex + 1.0)
 }
 
+/// `y = tanh(z + b)` row by row into `y` (`z`, `y`: `[rows, w]`, `b`: `[w]`), with
+/// the widest vector instructions the processor has: the same operations in the same
+/// order at every width, so the values do not depend on the instruction set.
+fn tanh_rows(z: &[f32], b: &[f32], y: &mut [f32]) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx512f") {
+            // SAFETY: the processor supports AVX-512F (checked just above).
+            unsafe { tanh_rows_avx512(z, b, y) };
+            return;
+        }
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: the processor supports AVX2 (checked just above).
+            unsafe { tanh_rows_avx2(z, b, y) };
+            return;
+        }
+    }
+    tanh_rows_plain(z, b, y)
+}
+
+#[inline(always)]
+fn tanh_rows_plain(z: &[f32], b: &[f32], y: &mut [f32]) {
+    let w = b.len();
+    for (zr, yr) in z.chunks_exact(w).zip(y.chunks_exact_mut(w)) {
+        for ((yv, &zv), &bv) in yr.iter_mut().zip(zr).zip(b) {
+            *yv = fast_tanh(zv + bv);
+        }
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f")]
+unsafe fn tanh_rows_avx512(z: &[f32], b: &[f32], y: &mut [f32]) {
+    tanh_rows_plain(z, b, y)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn tanh_rows_avx2(z: &[f32], b: &[f32], y: &mut [f32]) {
+    tanh_rows_plain(z, b, y)
+}
+
 /// Forward kernel. `z` is `[rows, w]` row-major with `rows = (1 + K)·n`, `b` is `[w]`.
 /// Returns the output and the slopes `φ'(a)` of the value rows (`[n, w]`).
 fn forward_kernel(z: &[f32], b: &[f32], n: usize, w: usize, act: Act) -> (Vec<f32>, Vec<f32>) {
     let mut out = Vec::with_capacity(z.len());
     let mut slopes = Vec::with_capacity(n * w);
+    if act == Act::FastTanh {
+        out.resize(n * w, 0.0);
+        tanh_rows(&z[..n * w], b, &mut out);
+    }
     for zr in z[..n * w].chunks_exact(w) {
         let a = zr.iter().zip(b).map(|(&zv, &bv)| zv + bv);
         match act {
-            Act::FastTanh => out.extend(a.map(fast_tanh)),
+            Act::FastTanh => break,
             Act::Tanh => out.extend(a.map(f32::tanh)),
             Act::Sine => {
                 out.extend(a.clone().map(f32::sin));
