@@ -596,6 +596,30 @@ pub(crate) fn back_layer(
     None
 }
 
+/// Makes glibc's allocator keep freed memory for reuse (mmap threshold 32 MiB, trim
+/// threshold 256 MiB) instead of handing blocks of a few hundred kilobytes back to the
+/// system and faulting them in again: training allocates and frees such blocks (layer
+/// activations, the matrix product's packing buffers) hundreds of times per step, and
+/// with the default settings the page faults cost 10–40 % of a step. Process-wide, so
+/// the library never calls it; the `slowfield` command and the benchmark do, first
+/// thing. A no-op off Linux/glibc.
+pub fn keep_freed_memory() {
+    #[cfg(all(target_os = "linux", target_env = "gnu"))]
+    {
+        extern "C" {
+            fn mallopt(param: i32, value: i32) -> i32;
+        }
+        const M_TRIM_THRESHOLD: i32 = -1;
+        const M_MMAP_THRESHOLD: i32 = -3;
+        // SAFETY: glibc's mallopt only sets allocator parameters (under its own lock);
+        // both values are within the documented ranges.
+        unsafe {
+            mallopt(M_MMAP_THRESHOLD, 32 << 20);
+            mallopt(M_TRIM_THRESHOLD, 256 << 20);
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -37,6 +37,7 @@ mod validate;
 use serde::{Deserialize, Serialize};
 
 pub use checkpoint::Checkpoint;
+pub use fused::keep_freed_memory;
 pub use net::{Activation, MlpShape};
 pub use train::{train, TrainedModel};
 
