@@ -113,7 +113,7 @@ fn main() {
     );
     let python = std::env::var("PYTHON").unwrap_or_else(|_| "python3".into());
     println!("wall-clock ms/step (CPU ms/step of the whole process in brackets)");
-    println!("| N | slowfield 1 thr, burn tanh | slowfield 1 thr | slowfield 2 thr | torch autograd 1 / 2 thr | torch tangent 1 / 2 thr | best slowfield / best torch (wall) |");
+    println!("| N | slowfield 1 thr, libm tanh | slowfield 1 thr | slowfield 2 thr | torch autograd 1 / 2 thr | torch tangent 1 / 2 thr | best slowfield / best torch (wall) |");
     println!("|---|---|---|---|---|---|---|");
     for &n in &ns {
         let plain = ms_per_step(n, 1, false);

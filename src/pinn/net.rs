@@ -9,6 +9,15 @@
 //! `dy = φ'(a)·da`. The reverse pass of the backend then differentiates everything,
 //! tangents included, with respect to the weights.
 //!
+//! On the flex backend each layer is one fused operation with its own reverse pass
+//! ([`super::fused`]): the value rows and the tangent blocks travel stacked in one
+//! matrix. For a scalar tanh network and two or more directions (∇T, ∇v) the tangents
+//! come instead from the input gradient: values forward, then `∂out/∂h` back down the
+//! layers (reverse mode, written as differentiable operations, so the training pass
+//! still reaches the weights through it), then `∇ₓout · dx` per direction: one extra
+//! product per layer instead of one per direction. Other backends, and
+//! [`NetTensors::with_fused`]`(false)`, use the plain tensor-operation layers above.
+//!
 //! Parameters live on the host as one flat `f32` vector per network (layer by layer:
 //! weights `[d_in, d_out]` row-major, then biases). Each training step lifts them into
 //! tracked tensors, so the optimizer state and checkpoints are plain vectors.
