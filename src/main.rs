@@ -6,6 +6,7 @@ use clap::Parser;
 use slowfield::cli::{run, Cli};
 
 fn main() -> ExitCode {
+    slowfield::pinn::keep_freed_memory();
     let cli = Cli::parse();
     match run(cli) {
         Ok(code) => code,

@@ -2,13 +2,15 @@
 //! loss and batch in PyTorch CPU (autograd with create_graph, and the tangent form).
 //!
 //! Run: `cargo run --release --example pinn_bench` (PyTorch part: `pip install torch`;
-//! set `PYTHON` to choose the interpreter, `--no-torch` to skip it).
+//! set `PYTHON` to choose the interpreter, `--no-torch` to skip it, `PINN_BENCH_N=4096`
+//! for some sizes only, `SHARD=n` for another `shard_points`).
 //!
 //! A typical spread: 100 m line, 61 receivers every 5/3 m, 15 shots, 915 picks, 25 m
 //! deep; travel-time net 6→4×64→1, velocity net 2→3×32→1, tanh. One step = sample the
 //! collocation points, forward with tangents, loss, backward, Adam update. The time per
 //! step is (t(S2) − t(S1))/(S2 − S1) over two runs, so set-up and the final evaluation
-//! cancel out.
+//! cancel out. Both processes run with the same glibc allocator settings
+//! ([`slowfield::pinn::keep_freed_memory`], which the `slowfield` command applies too).
 
 use std::process::Command;
 use std::time::Instant;
@@ -96,16 +98,22 @@ fn ms_per_step(n: usize, threads: usize, fast_tanh: bool) -> (f64, f64) {
 }
 
 fn main() {
+    // as the `slowfield` command does; PyTorch gets the same allocator settings below
+    slowfield::pinn::keep_freed_memory();
     let args: Vec<String> = std::env::args().collect();
     let no_torch = args.iter().any(|a| a == "--no-torch");
-    let ns = [1024usize, 4096, 16384];
+    // `PINN_BENCH_N=4096` (or a comma list) runs only those sizes
+    let ns: Vec<usize> = std::env::var("PINN_BENCH_N")
+        .ok()
+        .map(|v| v.split(',').filter_map(|w| w.trim().parse().ok()).collect())
+        .unwrap_or_else(|| vec![1024, 4096, 16384]);
     let script = concat!(
         env!("CARGO_MANIFEST_DIR"),
         "/experiments/pinn_bench/torch_step.py"
     );
     let python = std::env::var("PYTHON").unwrap_or_else(|_| "python3".into());
     println!("wall-clock ms/step (CPU ms/step of the whole process in brackets)");
-    println!("| N | slowfield 1 thr, burn tanh | slowfield 1 thr | slowfield 2 thr | torch autograd 1 / 2 thr | torch tangent 1 / 2 thr | best slowfield / best torch (wall) |");
+    println!("| N | slowfield 1 thr, libm tanh | slowfield 1 thr | slowfield 2 thr | torch autograd 1 / 2 thr | torch tangent 1 / 2 thr | best slowfield / best torch (wall) |");
     println!("|---|---|---|---|---|---|---|");
     for &n in &ns {
         let plain = ms_per_step(n, 1, false);
@@ -114,6 +122,8 @@ fn main() {
         let mut torch = None;
         if !no_torch {
             let out = Command::new(&python)
+                .env("MALLOC_MMAP_THRESHOLD_", (32u32 << 20).to_string())
+                .env("MALLOC_TRIM_THRESHOLD_", (256u32 << 20).to_string())
                 .arg(script)
                 .arg(n.to_string())
                 .output();

@@ -9,12 +9,23 @@
 //! `dy = φ'(a)·da`. The reverse pass of the backend then differentiates everything,
 //! tangents included, with respect to the weights.
 //!
+//! On the flex backend each layer is one fused operation with its own reverse pass
+//! ([`super::fused`]): the value rows and the tangent blocks travel stacked in one
+//! matrix. For a scalar tanh network and two or more directions (∇T, ∇v) the tangents
+//! come instead from the input gradient: values forward, then `∂out/∂h` back down the
+//! layers (reverse mode, written as differentiable operations, so the training pass
+//! still reaches the weights through it), then `∇ₓout · dx` per direction: one extra
+//! product per layer instead of one per direction. Other backends, and
+//! [`NetTensors::with_fused`]`(false)`, use the plain tensor-operation layers above.
+//!
 //! Parameters live on the host as one flat `f32` vector per network (layer by layer:
 //! weights `[d_in, d_out]` row-major, then biases). Each training step lifts them into
 //! tracked tensors, so the optimizer state and checkpoints are plain vectors.
 
 use burn::prelude::*;
 use burn::tensor::activation::sigmoid;
+
+use super::fused::{self, Act};
 use burn::tensor::Gradients;
 use rand::Rng;
 use serde::{Deserialize, Serialize};
@@ -93,6 +104,7 @@ pub struct NetTensors {
     shape: MlpShape,
     act: Activation,
     fast_tanh: bool,
+    fused: bool,
 }
 
 impl NetTensors {
@@ -131,7 +143,41 @@ impl NetTensors {
             shape: shape.clone(),
             act,
             fast_tanh,
+            fused: true,
         }
+    }
+
+    /// With `false`, layers are built from the backend's tensor operations instead of
+    /// the fused flex kernel ([`super::fused`]); the results are the same up to `f32`
+    /// rounding. The tensor-operation form is what other backends use, and the
+    /// reference the fused kernel is tested against.
+    pub fn with_fused(mut self, fused: bool) -> NetTensors {
+        self.fused = fused;
+        self
+    }
+
+    fn fused_act(&self, l: usize) -> Act {
+        if l + 1 == self.w.len() {
+            return Act::Identity;
+        }
+        match self.act {
+            Activation::Tanh if self.fast_tanh => Act::FastTanh,
+            Activation::Tanh => Act::Tanh,
+            Activation::Sine => Act::Sine,
+        }
+    }
+
+    /// Runs the layers on the stacked batch `[(1 + K)·n, d_in]` (value rows first, then
+    /// each tangent block) with the fused kernel; `None` when the backend has none.
+    fn forward_fused(&self, h: Tensor<2>, n: usize) -> Option<Tensor<2>> {
+        if !self.fused {
+            return None;
+        }
+        let mut h = h;
+        for l in 0..self.w.len() {
+            h = fused::layer(&h, &self.w[l], &self.b[l], n, self.fused_act(l))?;
+        }
+        Some(h)
     }
 
     /// The gradient of the last backward pass, flattened like the parameters (zeros
@@ -191,8 +237,49 @@ impl NetTensors {
         }
     }
 
+    /// Values and tangents of a scalar tanh network through its input gradient: a
+    /// forward sweep, then a reverse sweep `∂out/∂h` down the layers (one product per
+    /// layer instead of one per tangent direction), and each tangent as
+    /// `∇ₓout · dx`. Same quantities as the stacked forward tangents for two or more
+    /// directions, with fewer products for the training pass too. `None` where the
+    /// fused kernels do not apply.
+    fn input_gradient_fused(
+        &self,
+        x: Tensor<2>,
+        dx: &[Tensor<2>],
+    ) -> Option<(Tensor<2>, Vec<Tensor<2>>)> {
+        let layers = self.w.len();
+        let tanh = matches!(self.act, Activation::Tanh);
+        if !self.fused || !tanh || layers < 2 || self.shape.sizes[layers] != 1 {
+            return None;
+        }
+        let n = x.dims()[0];
+        let mut h = x;
+        let mut ys = Vec::with_capacity(layers - 1);
+        for l in 0..layers {
+            h = fused::layer(&h, &self.w[l], &self.b[l], n, self.fused_act(l))?;
+            if l + 1 < layers {
+                ys.push(h.clone());
+            }
+        }
+        let width = self.shape.sizes[layers - 1];
+        let mut u = self.w[layers - 1].clone().reshape([1, width]);
+        for l in (0..layers - 1).rev() {
+            u = fused::back_layer(&u, &self.w[l], &ys[l], self.fused_act(l))?;
+        }
+        let tangents = dx
+            .iter()
+            .map(|d| u.clone().mul(d.clone()).sum_dim(1))
+            .collect();
+        Some((h, tangents))
+    }
+
     /// Values only.
     pub fn forward(&self, x: Tensor<2>) -> Tensor<2> {
+        let rows = x.dims()[0];
+        if let Some(y) = self.forward_fused(x.clone(), rows) {
+            return y;
+        }
         let n = self.w.len();
         let mut h = x;
         for l in 0..n {
@@ -205,6 +292,30 @@ impl NetTensors {
     /// Values and the tangents `d(out)/dθ` for each input direction `dx[k]` (same
     /// rows as `x`).
     pub fn forward_tangent(&self, x: Tensor<2>, dx: Vec<Tensor<2>>) -> (Tensor<2>, Vec<Tensor<2>>) {
+        let rows = x.dims()[0];
+        let k = dx.len();
+        if k >= 2 {
+            if let Some(r) = self.input_gradient_fused(x.clone(), &dx) {
+                return r;
+            }
+        }
+        if self.fused {
+            let mut parts = Vec::with_capacity(k + 1);
+            parts.push(x.clone());
+            parts.extend(dx.iter().cloned());
+            let stacked = if k == 0 {
+                x.clone()
+            } else {
+                Tensor::cat(parts, 0)
+            };
+            if let Some(y) = self.forward_fused(stacked, rows) {
+                let value = y.clone().narrow(0, 0, rows);
+                let tangents = (1..=k)
+                    .map(|j| y.clone().narrow(0, j * rows, rows))
+                    .collect();
+                return (value, tangents);
+            }
+        }
         let n = self.w.len();
         let mut h = x;
         let mut d = dx;
