@@ -353,13 +353,36 @@ pub(crate) fn records(path: &Path, text: &str) -> Result<Vec<(u64, Vec<String>)>
         .comment(Some(b'#'))
         .trim(csv::Trim::All)
         .from_reader(text.as_bytes());
+    // Line numbers from byte offsets: the csv crate's own line count leaves out comment
+    // lines and counts CRLF line ends twice. A record's offset may point at comment or
+    // blank lines before it; its line is the first one with content.
+    let starts: Vec<usize> = std::iter::once(0)
+        .chain(text.match_indices('\n').map(|(k, _)| k + 1))
+        .collect();
+    let line_of = |byte: u64| -> u64 {
+        // after a CRLF the reader's offset can sit on the LF of the line before
+        let mut b = (byte as usize).min(text.len());
+        while text[b..].starts_with(['\r', '\n']) {
+            b += 1;
+        }
+        let mut l = starts.partition_point(|&s| s <= b).max(1);
+        while l < starts.len() {
+            let end = starts.get(l).copied().unwrap_or(text.len());
+            let t = text[starts[l - 1]..end].trim();
+            if !(t.is_empty() || t.starts_with('#')) {
+                break;
+            }
+            l += 1;
+        }
+        l as u64
+    };
     let mut out = Vec::new();
     for rec in rdr.records() {
         let rec = rec.map_err(|e| {
-            let line = e.position().map(|p| p.line()).unwrap_or(0);
+            let line = e.position().map(|p| line_of(p.byte())).unwrap_or(0);
             InputError::at(path, line, format!("not readable as CSV: {e}"))
         })?;
-        let line = rec.position().map(|p| p.line()).unwrap_or(0);
+        let line = rec.position().map(|p| line_of(p.byte())).unwrap_or(0);
         if rec.iter().all(|f| f.is_empty()) {
             continue;
         }

@@ -117,6 +117,22 @@ fn too_many_and_too_few_fields() {
 }
 
 #[test]
+fn line_numbers_count_comments_blank_lines_and_crlf() {
+    // header, six rows, a comment, a blank line, a good row: the bad row is line 11
+    let c = Case::new();
+    let mut s = good_rows();
+    s.push_str("# second spread\n\nA,0,0,12,0,24,0.5\nA,0,0,14,0,abc,0.5\n");
+    let (code, err) = c.check(s.as_bytes());
+    assert_located(code, &err, Some(11), Some("time_ms"), "after a comment");
+    // Windows line ends: the bad row is line 8 still
+    let c = Case::new();
+    let mut s = good_rows().replace('\n', "\r\n");
+    s.push_str("A,0,0,12,0,abc,0.5\r\n");
+    let (code, err) = c.check(s.as_bytes());
+    assert_located(code, &err, Some(8), Some("time_ms"), "CRLF");
+}
+
+#[test]
 fn bad_times() {
     for (t, what) in [
         ("abc", "not a number"),
