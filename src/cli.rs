@@ -23,7 +23,7 @@ pub enum Command {
     Check(CheckArgs),
     /// Fast-marching travel times of a model for the geometry of a picks file (also makes synthetic picks).
     Forward(ForwardArgs),
-    /// Invert picks for a velocity section (PINN), checked by fast marching.
+    /// Invert picks for a velocity section (PINN, refined against fast marching), checked by fast marching.
     Invert(InvertArgs),
     /// Run the whole job on the shipped demo picks.
     Demo(DemoArgs),
@@ -125,6 +125,9 @@ pub struct InvertArgs {
     /// Training steps at most.
     #[arg(long)]
     pub steps: Option<usize>,
+    /// Refinement iterations against fast marching after the PINN (0: the PINN alone).
+    #[arg(long, value_name = "N")]
+    pub refine: Option<usize>,
     /// Seed of every random choice.
     #[arg(long)]
     pub seed: Option<u64>,

@@ -513,10 +513,13 @@ pub fn traveltime_curves(
     })
 }
 
-/// Loss curves on a logarithmic axis; each series is (name, [(step, value)]).
+/// Loss curves on a logarithmic axis; each series is (name, [(step, value)]). The axis
+/// spans at least from the decade below the smallest value to the one above the
+/// largest, so it always carries labelled ticks.
 pub fn loss_curves(
     stem: &Path,
     title: &str,
+    (x_label, y_label): (&str, &str),
     series: &[(String, Vec<(f64, f64)>)],
 ) -> Result<(), FigureError> {
     let (w, h) = (1100u32, 600u32);
@@ -533,6 +536,8 @@ pub fn loss_curves(
     if !lo.is_finite() {
         (lo, hi) = (1e-3, 1.0);
     }
+    let lo = (lo * 0.8).min(10f64.powf(lo.log10().floor()));
+    let hi = (hi * 1.25).max(10f64.powf(hi.log10().ceil()));
     figure!(stem, (w, h), |root| {
         root.fill(&WHITE)?;
         let mut ch = ChartBuilder::on(&root)
@@ -540,11 +545,11 @@ pub fn loss_curves(
             .margin(14)
             .x_label_area_size(45)
             .y_label_area_size(75)
-            .build_cartesian_2d(0.0..smax, (lo * 0.8..hi * 1.25).log_scale())?;
+            .build_cartesian_2d(0.0..smax, (lo..hi).log_scale())?;
         ch.configure_mesh()
             .light_line_style(RGBColor(235, 235, 235))
-            .x_desc("training step")
-            .y_desc("loss term")
+            .x_desc(x_label)
+            .y_desc(y_label)
             .x_label_formatter(&tick)
             .y_label_formatter(&|v| format!("{v:.0e}"))
             .label_style(("sans-serif", 15))

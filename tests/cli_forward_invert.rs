@@ -233,6 +233,20 @@ fn invert_writes_every_output_and_resumes_to_the_same_result() {
     );
     let c = std::fs::read_to_string(d.path().join("again/velocity.csv")).unwrap();
     assert_eq!(a, c, "settings.toml does not repeat the run");
+    // the refinement ran by default and is reported; --refine 0 gives the PINN alone,
+    // whose fast-marching χ² is the one the refinement started from
+    let r = &report["refinement"];
+    assert!(r["iterations"].as_u64().unwrap() >= 1, "{r}");
+    assert!(report["method"].as_str().unwrap().contains("refinement"));
+    inv(&["--steps", "40", "--refine", "0"], "plain");
+    let plain: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.path().join("plain/report.json")).unwrap())
+            .unwrap();
+    assert!(plain["refinement"].is_null());
+    assert_eq!(plain["method"], "pinn");
+    let pinn_chi2 = plain["fmm_misfit"]["chi2"].as_f64().unwrap();
+    assert!((pinn_chi2 - r["pinn_chi2"].as_f64().unwrap()).abs() <= 1e-9 * pinn_chi2);
+    assert!(report["fmm_misfit"]["chi2"].as_f64().unwrap() <= pinn_chi2);
 }
 
 #[test]

@@ -78,7 +78,13 @@ fn section_curves_and_losses_are_written() {
         "data".to_string(),
         (1..100).map(|k| (k as f64, 10.0 / k as f64)).collect(),
     )];
-    loss_curves(&dir.path().join("loss"), "loss", &series).unwrap();
+    loss_curves(
+        &dir.path().join("loss"),
+        "loss",
+        ("training step", "loss term"),
+        &series,
+    )
+    .unwrap();
     png_size(&std::fs::read(dir.path().join("loss.png")).unwrap());
     // nothing temporary left behind
     for e in std::fs::read_dir(dir.path()).unwrap() {

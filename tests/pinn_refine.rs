@@ -14,32 +14,17 @@
 use slowfield::eikonal::FmmOptions;
 use slowfield::model::{GridSpec, VelocityGrid};
 use slowfield::settings::RunSettings;
-use slowfield::survey::{Pick, Point, Surface, Survey};
+use slowfield::survey::{Surface, Survey};
 use slowfield::verify::{predict, solver_grid, FmmMisfit};
 use slowfield::workflow::invert::{run, InvertJob};
+
+mod common;
 
 use rand::SeedableRng;
 use rand_distr::Distribution;
 
-/// 5 shots into 26 receivers every 2 m on flat ground at z = 0.
 fn geometry() -> Survey {
-    let mut picks = Vec::new();
-    for (k, sx) in [0.0, 12.0, 26.0, 38.0, 50.0].iter().enumerate() {
-        for r in 0..26 {
-            let rx = 2.0 * r as f64;
-            if (rx - sx).abs() > 0.01 {
-                picks.push(Pick {
-                    shot: format!("S{k}"),
-                    source: Point::new(*sx, 0.0),
-                    receiver: Point::new(rx, 0.0),
-                    time: 0.0,
-                    sigma: Some(5e-4),
-                    line: picks.len() as u64 + 2,
-                });
-            }
-        }
-    }
-    Survey::from_picks(picks).unwrap()
+    common::five_shot_spread()
 }
 
 fn spec() -> GridSpec {

@@ -7,9 +7,11 @@ use slowfield::compare::against_truth;
 use slowfield::eikonal::FmmOptions;
 use slowfield::model::{GridSpec, VelocityGrid};
 use slowfield::settings::RunSettings;
-use slowfield::survey::{Pick, Point, Surface, Survey};
+use slowfield::survey::{Surface, Survey};
 use slowfield::verify::{predict, solver_grid};
 use slowfield::workflow::invert::{read_coverage, run, InvertJob};
+
+mod common;
 
 use rand::SeedableRng;
 use rand_distr::Distribution;
@@ -27,24 +29,7 @@ fn gradient_ground_is_recovered_and_verified_by_fast_marching() {
         nz: 51,
     };
     let truth = VelocityGrid::from_fn(spec, Some(&surf), |_, z| 400.0 - 40.0 * z);
-    // 5 shots into 26 receivers every 2 m
-    let mut picks = Vec::new();
-    for (k, sx) in [0.0, 12.0, 26.0, 38.0, 50.0].iter().enumerate() {
-        for r in 0..26 {
-            let rx = 2.0 * r as f64;
-            if (rx - sx).abs() > 0.01 {
-                picks.push(Pick {
-                    shot: format!("S{k}"),
-                    source: Point::new(*sx, 0.0),
-                    receiver: Point::new(rx, 0.0),
-                    time: 0.0,
-                    sigma: Some(5e-4),
-                    line: picks.len() as u64 + 2,
-                });
-            }
-        }
-    }
-    let geometry = Survey::from_picks(picks).unwrap();
+    let geometry = common::five_shot_spread();
     let grid = solver_grid(&truth, &geometry.surface, 0.25).unwrap();
     let times = predict(&geometry, &grid, &FmmOptions::default()).unwrap();
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(11);

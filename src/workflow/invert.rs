@@ -630,7 +630,37 @@ fn write_outputs(
             h.iter().map(|s| (s.step as f64, s.regulariser)).collect(),
         ),
     ];
-    figures::loss_curves(&out.join("loss"), "PINN training: loss terms", &series)?;
+    figures::loss_curves(
+        &out.join("loss"),
+        "PINN training: loss terms",
+        ("training step", "loss term"),
+        &series,
+    )?;
+    if let Some(r) = &report.refinement {
+        let series = vec![
+            (
+                "fast-marching χ²".to_string(),
+                r.chi2.iter().map(|c| (c.0 as f64, c.1)).collect(),
+            ),
+            (
+                "χ² predicted by the linearisation".to_string(),
+                r.chi2
+                    .iter()
+                    .filter(|c| c.2.is_finite())
+                    .map(|c| (c.0 as f64, c.2))
+                    .collect(),
+            ),
+        ];
+        figures::loss_curves(
+            &out.join("refinement"),
+            "Refinement against fast marching: χ² per outer iteration",
+            (
+                "outer iteration (one fast-marching solve of every shot)",
+                "χ²",
+            ),
+            &series,
+        )?;
+    }
     w("report.html", html_report(report).as_bytes())?;
     Ok(())
 }
@@ -795,12 +825,17 @@ fn html_report(r: &InvertReport) -> String {
 <h2>Velocity section</h2><img src=\"velocity.png\" alt=\"velocity section\">\
 <p>Depth to {:.0} m/s where the rays reach it: <code>interface-depth.csv</code>.</p>\
 <h2>Travel times</h2><img src=\"traveltimes.png\" alt=\"travel-time curves\">\
-<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">\
+<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">{}\
 <p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin.</p></body></html>\n",
         html_escape(r.caution),
         t,
         warn,
-        r.interface.velocity_mps
+        r.interface.velocity_mps,
+        if r.refinement.is_some() {
+            "<h2>Refinement</h2><img src=\"refinement.png\" alt=\"refinement chi-square\">"
+        } else {
+            ""
+        }
     )
 }
 

@@ -197,6 +197,9 @@ pub fn invert_settings(
     if let Some(v) = a.steps {
         s.pinn.steps = v;
     }
+    if let Some(v) = a.refine {
+        s.refine.iterations = v;
+    }
     if let Some(v) = a.seed {
         s.pinn.seed = v;
     }
@@ -280,7 +283,7 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
     )?;
     let pinn_dir = out.join("pinn");
     say(&format!(
-        "2/3 PINN inversion into {} (about half a minute on 2 cores)",
+        "2/3 PINN inversion and refinement against fast marching into {} (under a minute on 2 cores)",
         pinn_dir.display()
     ));
     let mut settings = RunSettings::default();

@@ -58,3 +58,26 @@ pub fn gradient_errors(
     }
     (max, sum / n as f64, rel / n as f64)
 }
+
+/// A small flat spread: 5 shots (x = 0, 12, 26, 38, 50 m) into 26 receivers every 2 m on
+/// ground at z = 0, σ = 0.5 ms, times zero (fill them from a model).
+pub fn five_shot_spread() -> slowfield::survey::Survey {
+    use slowfield::survey::{Pick, Survey};
+    let mut picks = Vec::new();
+    for (k, sx) in [0.0, 12.0, 26.0, 38.0, 50.0].iter().enumerate() {
+        for r in 0..26 {
+            let rx = 2.0 * r as f64;
+            if (rx - sx).abs() > 0.01 {
+                picks.push(Pick {
+                    shot: format!("S{k}"),
+                    source: Point::new(*sx, 0.0),
+                    receiver: Point::new(rx, 0.0),
+                    time: 0.0,
+                    sigma: Some(5e-4),
+                    line: picks.len() as u64 + 2,
+                });
+            }
+        }
+    }
+    Survey::from_picks(picks).unwrap()
+}
