@@ -67,14 +67,12 @@ impl Default for RefineSettings {
 impl RefineSettings {
     /// Checks the values; the message says what to do.
     pub fn validate(&self) -> Result<(), String> {
-        let pos = |name: &str, v: f64| {
-            if v.is_finite() && v > 0.0 {
-                Ok(())
-            } else {
-                Err(format!("refine.{name} = {v} must be a positive number"))
-            }
-        };
-        pos("chi2_target", self.chi2_target)?;
+        if !(self.chi2_target.is_finite() && self.chi2_target > 0.0) {
+            return Err(format!(
+                "refine.chi2_target = {} must be a positive number",
+                self.chi2_target
+            ));
+        }
         if self.iterations > 0 && self.inner_steps == 0 {
             return Err("refine.inner_steps = 0: give at least one step per iteration (or refine.iterations = 0 to switch the stage off)".into());
         }

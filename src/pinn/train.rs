@@ -246,7 +246,7 @@ impl TrainedModel {
         )
     }
 
-    pub(super) fn vel_net(&self, device: &Device, track: bool) -> NetTensors {
+    fn vel_net(&self, device: &Device, track: bool) -> NetTensors {
         NetTensors::new(
             &self.vel_shape,
             &self.vel,
