@@ -15,13 +15,10 @@ use slowfield::eikonal::FmmOptions;
 use slowfield::model::{GridSpec, VelocityGrid};
 use slowfield::settings::RunSettings;
 use slowfield::survey::{Surface, Survey};
-use slowfield::verify::{predict, solver_grid, FmmMisfit};
+use slowfield::verify::{predict, FmmMisfit};
 use slowfield::workflow::invert::{run, InvertJob};
 
 mod common;
-
-use rand::SeedableRng;
-use rand_distr::Distribution;
 
 fn geometry() -> Survey {
     common::five_shot_spread()
@@ -97,15 +94,7 @@ fn refinement_lowers_the_fast_marching_misfit_it_reports() {
         }
     });
     let geometry = geometry();
-    let grid = solver_grid(&fine, &geometry.surface, 0.25).unwrap();
-    let times = predict(&geometry, &grid, &FmmOptions::default()).unwrap();
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
-    let noise = rand_distr::Normal::new(0.0, 5e-4).unwrap();
-    let mut picks = geometry.picks.clone();
-    for (p, t) in picks.iter_mut().zip(&times) {
-        p.time = t + noise.sample(&mut rng);
-    }
-    let survey = Survey::from_picks(picks).unwrap();
+    let survey = common::noisy_picks(&geometry, &fine, 5);
     let mut settings = RunSettings::default();
     settings.pinn.steps = 300;
     settings.refine.iterations = 4;

@@ -4,17 +4,12 @@
 //! Target (issue): model within 10 % in the ray-covered zone, FMM-verified χ² ≤ 1.5.
 
 use slowfield::compare::against_truth;
-use slowfield::eikonal::FmmOptions;
 use slowfield::model::{GridSpec, VelocityGrid};
 use slowfield::settings::RunSettings;
-use slowfield::survey::{Surface, Survey};
-use slowfield::verify::{predict, solver_grid};
+use slowfield::survey::Surface;
 use slowfield::workflow::invert::{read_coverage, run, InvertJob};
 
 mod common;
-
-use rand::SeedableRng;
-use rand_distr::Distribution;
 
 #[test]
 fn gradient_ground_is_recovered_and_verified_by_fast_marching() {
@@ -30,15 +25,7 @@ fn gradient_ground_is_recovered_and_verified_by_fast_marching() {
     };
     let truth = VelocityGrid::from_fn(spec, Some(&surf), |_, z| 400.0 - 40.0 * z);
     let geometry = common::five_shot_spread();
-    let grid = solver_grid(&truth, &geometry.surface, 0.25).unwrap();
-    let times = predict(&geometry, &grid, &FmmOptions::default()).unwrap();
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(11);
-    let noise = rand_distr::Normal::new(0.0, 5e-4).unwrap();
-    let mut picks = geometry.picks.clone();
-    for (p, t) in picks.iter_mut().zip(&times) {
-        p.time = t + noise.sample(&mut rng);
-    }
-    let survey = Survey::from_picks(picks).unwrap();
+    let survey = common::noisy_picks(&geometry, &truth, 11);
     let dir = tempfile::tempdir().unwrap();
     let job = InvertJob {
         picks_path: "synthetic.csv".into(),

@@ -81,3 +81,24 @@ pub fn five_shot_spread() -> slowfield::survey::Survey {
     }
     Survey::from_picks(picks).unwrap()
 }
+
+/// `geometry`'s picks with times by fast marching through `truth` on a 0.25 m grid plus
+/// Gaussian noise of σ = 0.5 ms (seeded).
+pub fn noisy_picks(
+    geometry: &slowfield::survey::Survey,
+    truth: &slowfield::model::VelocityGrid,
+    seed: u64,
+) -> slowfield::survey::Survey {
+    use rand::SeedableRng;
+    use rand_distr::Distribution;
+    let grid = slowfield::verify::solver_grid(truth, &geometry.surface, 0.25).unwrap();
+    let opts = slowfield::eikonal::FmmOptions::default();
+    let times = slowfield::verify::predict(geometry, &grid, &opts).unwrap();
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    let noise = rand_distr::Normal::new(0.0, 5e-4).unwrap();
+    let mut picks = geometry.picks.clone();
+    for (p, t) in picks.iter_mut().zip(&times) {
+        p.time = t + noise.sample(&mut rng);
+    }
+    slowfield::survey::Survey::from_picks(picks).unwrap()
+}
