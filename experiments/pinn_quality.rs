@@ -186,12 +186,7 @@ fn synthetic_survey(c: &Case, seed: u64) -> Survey {
 /// the survey's surface.
 fn true_grid(c: &Case, survey: &Survey, cell: f64) -> VelocityGrid {
     let (x0, x1) = survey.x_range();
-    let top = survey
-        .surface
-        .nodes
-        .iter()
-        .map(|p| p.z)
-        .fold(f64::NEG_INFINITY, f64::max);
+    let top = survey.surface.highest();
     let z0 = top - 45.0;
     let nx = ((x1 - x0) / cell).round() as usize + 1;
     let nz = ((top - z0) / cell).ceil() as usize + 1;

@@ -94,6 +94,14 @@ impl Surface {
         Surface { nodes }
     }
 
+    /// Elevation of the highest node of the profile, m.
+    pub fn highest(&self) -> f64 {
+        self.nodes
+            .iter()
+            .map(|p| p.z)
+            .fold(f64::NEG_INFINITY, f64::max)
+    }
+
     /// Elevation of the ground at `x`, m.
     pub fn elevation(&self, x: f64) -> f64 {
         let n = &self.nodes;

@@ -86,7 +86,7 @@ pub fn solver_grid(
     if !(cell.is_finite() && cell > 0.0) || cell > (m.x_max() - m.x0) {
         return Err(VerifyError::BadCell(cell));
     }
-    let top = surface.nodes.iter().map(|p| p.z).fold(m.z_max(), f64::max);
+    let top = surface.highest().max(m.z_max());
     let nx = ((m.x_max() - m.x0) / cell).round() as usize + 1;
     let nz = ((top - m.z0) / cell).ceil() as usize + 1;
     let spec = GridSpec {
@@ -219,6 +219,8 @@ pub fn misfit(survey: &Survey, predicted: &[f64], sigma: f64) -> Misfit {
 /// but get no sensitivities.
 pub struct FmmMisfit<'a> {
     survey: &'a Survey,
+    sources: Vec<crate::survey::Point>,
+    receivers: Vec<Vec<crate::survey::Point>>,
     spec: GridSpec,
     sigma: f64,
     opts: FmmOptions,
@@ -229,8 +231,11 @@ impl<'a> FmmMisfit<'a> {
     /// Misfit of models on `spec` to the picks of `survey`; `sigma` (s) is the default
     /// for picks without their own.
     pub fn new(survey: &'a Survey, spec: GridSpec, sigma: f64) -> FmmMisfit<'a> {
+        let (sources, receivers) = survey.shot_geometry();
         FmmMisfit {
             survey,
+            sources,
+            receivers,
             spec,
             sigma,
             opts: FmmOptions::default(),
@@ -242,13 +247,12 @@ impl<'a> FmmMisfit<'a> {
     /// grid, NaN = air), in file order.
     pub fn linearise(&self, velocity: &[f64]) -> Result<crate::pinn::Linearisation, VerifyError> {
         let slowness: Vec<f64> = velocity.iter().map(|&v| 1.0 / v).collect();
-        let (sources, receivers) = self.survey.shot_geometry();
         let ray_opts = self.ray_opts;
         let per = eikonal::map_shots(
             &self.spec,
             &slowness,
-            &sources,
-            &receivers,
+            &self.sources,
+            &self.receivers,
             &self.opts,
             |f, r| {
                 let t = f.time_at(r);

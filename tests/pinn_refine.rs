@@ -25,14 +25,7 @@ fn geometry() -> Survey {
 }
 
 fn spec() -> GridSpec {
-    GridSpec {
-        x0: -2.0,
-        z0: -25.0,
-        dx: 0.5,
-        dz: 0.5,
-        nx: 109,
-        nz: 51,
-    }
+    common::five_shot_grid()
 }
 
 #[test]

@@ -4,7 +4,7 @@
 //! Target (issue): model within 10 % in the ray-covered zone, FMM-verified χ² ≤ 1.5.
 
 use slowfield::compare::against_truth;
-use slowfield::model::{GridSpec, VelocityGrid};
+use slowfield::model::VelocityGrid;
 use slowfield::settings::RunSettings;
 use slowfield::survey::Surface;
 use slowfield::workflow::invert::{read_coverage, run, InvertJob};
@@ -15,14 +15,7 @@ mod common;
 fn gradient_ground_is_recovered_and_verified_by_fast_marching() {
     // truth: v = 400 + 40·depth below a flat ground at z = 0 (a common soil profile shape)
     let surf = Surface::flat(0.0);
-    let spec = GridSpec {
-        x0: -2.0,
-        z0: -25.0,
-        dx: 0.5,
-        dz: 0.5,
-        nx: 109,
-        nz: 51,
-    };
+    let spec = common::five_shot_grid();
     let truth = VelocityGrid::from_fn(spec, Some(&surf), |_, z| 400.0 - 40.0 * z);
     let geometry = common::five_shot_spread();
     let survey = common::noisy_picks(&geometry, &truth, 11);

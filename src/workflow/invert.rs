@@ -62,12 +62,7 @@ pub fn geometry(survey: &Survey, s: &RunSettings) -> Geometry {
     let cell = s
         .cell_m
         .unwrap_or_else(|| verify::default_cell(0.5, survey));
-    let ztop = survey
-        .surface
-        .nodes
-        .iter()
-        .map(|p| p.z)
-        .fold(f64::NEG_INFINITY, f64::max);
+    let ztop = survey.surface.highest();
     let zlow = survey
         .stations()
         .iter()

@@ -59,6 +59,18 @@ pub fn gradient_errors(
     (max, sum / n as f64, rel / n as f64)
 }
 
+/// Model grid under [`five_shot_spread`]: x from −2 to 52 m, z from −25 to 0 m, 0.5 m.
+pub fn five_shot_grid() -> GridSpec {
+    GridSpec {
+        x0: -2.0,
+        z0: -25.0,
+        dx: 0.5,
+        dz: 0.5,
+        nx: 109,
+        nz: 51,
+    }
+}
+
 /// A small flat spread: 5 shots (x = 0, 12, 26, 38, 50 m) into 26 receivers every 2 m on
 /// ground at z = 0, σ = 0.5 ms, times zero (fill them from a model).
 pub fn five_shot_spread() -> slowfield::survey::Survey {
