@@ -243,6 +243,7 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         out: out.to_path_buf(),
         settings: settings.clone(),
         resume,
+        resume_refine: None,
         progress: false,
     };
     let invert::InvertOutcome {

@@ -204,6 +204,7 @@ fn invert_writes_every_output_and_resumes_to_the_same_result() {
         "report.html",
         "settings.toml",
         "checkpoint.bin",
+        "refine.bin",
         "velocity.png",
         "velocity.svg",
         "traveltimes.png",
@@ -335,6 +336,19 @@ fn resume_from_another_survey_is_refused_and_overwrites_nothing() {
     assert_eq!(
         cp_before,
         std::fs::read(d.path().join("first/checkpoint.bin")).unwrap()
+    );
+    // a damaged refinement state is named, with what to do, and nothing is written
+    std::fs::write(d.path().join("first/refine.bin"), b"SFREFINE\x01\x00").unwrap();
+    let o = run(
+        &["invert", "picks.csv", "--resume", "first", "-o", "first"],
+        d.path(),
+    );
+    assert!(!o.status.success());
+    let e = stderr(&o);
+    assert!(e.contains("refine.bin") && e.contains("delete it"), "{e}");
+    assert_eq!(
+        before,
+        std::fs::read(d.path().join("first/velocity.csv")).unwrap()
     );
 }
 

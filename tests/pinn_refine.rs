@@ -13,10 +13,12 @@
 
 use slowfield::eikonal::FmmOptions;
 use slowfield::model::{GridSpec, VelocityGrid};
+use slowfield::pinn::{Checkpoint, RefineState};
 use slowfield::settings::RunSettings;
 use slowfield::survey::{Surface, Survey};
 use slowfield::verify::{predict, FmmMisfit};
-use slowfield::workflow::invert::{run, InvertJob};
+use slowfield::workflow::invert::{run, InvertJob, CHECKPOINT, REFINE_STATE};
+use std::path::PathBuf;
 
 mod common;
 
@@ -74,10 +76,9 @@ fn ray_sensitivities_predict_the_change_of_fast_marching_times() {
     assert!(rel < 0.1, "relative error of J·Δs {rel}");
 }
 
-#[test]
-fn refinement_lowers_the_fast_marching_misfit_it_reports() {
-    // truth: 400 + 40·depth with a 2 m thick 900 m/s slab from 6 m depth (a cemented
-    // layer); picks by fast marching on a 0.25 m grid plus σ = 0.5 ms noise
+/// Truth: 400 + 40·depth with a 2 m thick 900 m/s slab from 6 m depth (a cemented
+/// layer); picks by fast marching on a 0.25 m grid plus σ = 0.5 ms noise.
+fn slab_survey() -> Survey {
     let surf = Surface::flat(0.0);
     let fine = VelocityGrid::from_fn(spec(), Some(&surf), |_, z| {
         if (-8.0..=-6.0).contains(&z) {
@@ -86,21 +87,31 @@ fn refinement_lowers_the_fast_marching_misfit_it_reports() {
             400.0 - 40.0 * z
         }
     });
-    let geometry = geometry();
-    let survey = common::noisy_picks(&geometry, &fine, 5);
+    common::noisy_picks(&geometry(), &fine, 5)
+}
+
+fn job(out: PathBuf, settings: RunSettings) -> InvertJob {
+    InvertJob {
+        picks_path: "synthetic.csv".into(),
+        out,
+        settings,
+        resume: None,
+        resume_refine: None,
+        progress: false,
+    }
+}
+
+#[test]
+fn refinement_lowers_the_fast_marching_misfit_it_reports() {
+    let survey = slab_survey();
     let mut settings = RunSettings::default();
     settings.pinn.steps = 300;
     settings.refine.iterations = 4;
     settings.refine.inner_steps = 40;
     let dir = tempfile::tempdir().unwrap();
-    let job = InvertJob {
-        picks_path: "synthetic.csv".into(),
-        out: dir.path().join("out"),
-        settings,
-        resume: None,
-        progress: false,
-    };
-    let report = run(&survey, &job).unwrap().report;
+    let report = run(&survey, &job(dir.path().join("out"), settings))
+        .unwrap()
+        .report;
     let r = report.refinement.as_ref().expect("the stage ran");
     eprintln!(
         "PINN χ² {:.3} → refined {:.3} (kept iteration {}); reported {:.3}",
@@ -117,4 +128,50 @@ fn refinement_lowers_the_fast_marching_misfit_it_reports() {
         report.fmm_misfit.chi2,
         r.refined_chi2
     );
+}
+
+#[test]
+fn an_interrupted_refinement_continues_to_the_same_result() {
+    let survey = slab_survey();
+    let mut settings = RunSettings::default();
+    settings.pinn.steps = 300;
+    settings.refine.iterations = 4;
+    settings.refine.inner_steps = 20;
+    // out of reach, so all four iterations run
+    settings.refine.chi2_target = 0.05;
+    let dir = tempfile::tempdir().unwrap();
+    let full = run(&survey, &job(dir.path().join("full"), settings.clone())).unwrap();
+    // a run stopped during the third iteration leaves the state of its start behind
+    let mut short = settings.clone();
+    short.refine.iterations = 2;
+    let cut = dir.path().join("cut");
+    run(&survey, &job(cut.clone(), short)).unwrap();
+    let cp = Checkpoint::from_bytes(&std::fs::read(cut.join(CHECKPOINT)).unwrap()).unwrap();
+    let st = RefineState::from_bytes(&std::fs::read(cut.join(REFINE_STATE)).unwrap()).unwrap();
+    assert_eq!(st.iteration(), 2);
+    let mut again = job(dir.path().join("resumed"), settings.clone());
+    again.resume = Some(cp);
+    again.resume_refine = Some(st);
+    let resumed = run(&survey, &again).unwrap();
+    let (a, b) = (
+        full.report.refinement.as_ref().unwrap(),
+        resumed.report.refinement.as_ref().unwrap(),
+    );
+    assert_eq!(b.resumed_from, Some(2));
+    assert_eq!(a.resumed_from, None);
+    assert_eq!(a.chi2.len(), 5);
+    for (x, y) in a.chi2.iter().zip(&b.chi2) {
+        assert_eq!(x.0, y.0);
+        assert_eq!(x.1.to_bits(), y.1.to_bits(), "iteration {}", x.0);
+    }
+    let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+    assert_eq!(bits(&full.model.v), bits(&resumed.model.v));
+    // a state from other settings is not used: the stage starts afresh
+    let mut other = settings.clone();
+    other.refine.reg_weight *= 2.0;
+    let mut stale = job(dir.path().join("stale"), other);
+    stale.resume_refine =
+        Some(RefineState::from_bytes(&std::fs::read(cut.join(REFINE_STATE)).unwrap()).unwrap());
+    let r = run(&survey, &stale).unwrap();
+    assert_eq!(r.report.refinement.as_ref().unwrap().resumed_from, None);
 }

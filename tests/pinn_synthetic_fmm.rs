@@ -25,6 +25,7 @@ fn gradient_ground_is_recovered_and_verified_by_fast_marching() {
         out: dir.path().join("out"),
         settings: RunSettings::default(),
         resume: None,
+        resume_refine: None,
         progress: false,
     };
     let report = run(&survey, &job).unwrap().report;

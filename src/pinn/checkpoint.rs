@@ -181,23 +181,26 @@ impl Checkpoint {
     }
 }
 
-fn put_u32(w: &mut Vec<u8>, x: u32) {
+pub(super) fn put_u32(w: &mut Vec<u8>, x: u32) {
     w.extend_from_slice(&x.to_le_bytes());
 }
-fn put_u64(w: &mut Vec<u8>, x: u64) {
+pub(super) fn put_u64(w: &mut Vec<u8>, x: u64) {
     w.extend_from_slice(&x.to_le_bytes());
 }
-fn put_f64(w: &mut Vec<u8>, x: f64) {
+pub(super) fn put_f64(w: &mut Vec<u8>, x: f64) {
     put_u64(w, x.to_bits());
 }
 
-struct Reader<'a> {
+pub(super) struct Reader<'a> {
     b: &'a [u8],
     at: usize,
 }
 
 impl<'a> Reader<'a> {
-    fn take(&mut self, n: usize) -> Result<&'a [u8], PinnError> {
+    pub(super) fn new(b: &'a [u8]) -> Reader<'a> {
+        Reader { b, at: 0 }
+    }
+    pub(super) fn take(&mut self, n: usize) -> Result<&'a [u8], PinnError> {
         if self.b.len() - self.at < n {
             return Err(PinnError::CheckpointCorrupt(
                 "it ends early (truncated file?)".into(),
@@ -207,21 +210,21 @@ impl<'a> Reader<'a> {
         self.at += n;
         Ok(s)
     }
-    fn u32(&mut self) -> Result<u32, PinnError> {
+    pub(super) fn u32(&mut self) -> Result<u32, PinnError> {
         let mut a = [0u8; 4];
         a.copy_from_slice(self.take(4)?);
         Ok(u32::from_le_bytes(a))
     }
-    fn u64(&mut self) -> Result<u64, PinnError> {
+    pub(super) fn u64(&mut self) -> Result<u64, PinnError> {
         let mut a = [0u8; 8];
         a.copy_from_slice(self.take(8)?);
         Ok(u64::from_le_bytes(a))
     }
-    fn f64(&mut self) -> Result<f64, PinnError> {
+    pub(super) fn f64(&mut self) -> Result<f64, PinnError> {
         Ok(f64::from_bits(self.u64()?))
     }
     /// A length prefix, checked against the bytes left (`unit` bytes per item).
-    fn len(&mut self, unit: usize) -> Result<usize, PinnError> {
+    pub(super) fn len(&mut self, unit: usize) -> Result<usize, PinnError> {
         let n = self.u64()?;
         let left = (self.b.len() - self.at) as u64;
         if n.saturating_mul(unit as u64) > left {

@@ -27,6 +27,7 @@
 //! ([`net`]). Adam (Kingma & Ba 2015, ICLR) with an exponentially decaying step.
 
 mod checkpoint;
+mod detail;
 mod fused;
 pub mod geom;
 pub mod net;
@@ -40,7 +41,10 @@ use serde::{Deserialize, Serialize};
 pub use checkpoint::Checkpoint;
 pub use fused::keep_freed_memory;
 pub use net::{Activation, MlpShape};
-pub use refine::{refine, Linearisation, RefineLog, RefineOutcome, RefineSettings, TimeMisfit};
+pub use refine::{
+    refine, Linearisation, RefineLog, RefineObserver, RefineOutcome, RefineSettings, RefineState,
+    TimeMisfit,
+};
 pub use train::{train, TrainedModel};
 
 /// One first-arrival pick. Positions `(x, z)` in m (z elevation), times in s.
@@ -195,7 +199,7 @@ impl Default for PinnSettings {
             tau_depth: 4,
             vel_width: 32,
             vel_depth: 3,
-            vel_follow_ground: false,
+            vel_follow_ground: true,
             vel_input_scale: 1.0,
             activation: Activation::Tanh,
             fast_tanh: true,

@@ -33,6 +33,8 @@ use argmin::solver::quasinewton::LBFGS;
 use burn::prelude::*;
 use serde::{Deserialize, Serialize};
 
+use super::checkpoint::{put_f64, put_u32, put_u64, Reader};
+use super::detail::{Detail, DetailBatch};
 use super::net::NetTensors;
 use super::train::{to_f64, velocity_tangent, TrainedModel, VelBatch};
 use super::{PinnError, Regulariser};
@@ -47,10 +49,21 @@ pub struct RefineSettings {
     pub iterations: usize,
     /// L-BFGS iterations on the linearised misfit per outer iteration.
     pub inner_steps: usize,
-    /// Weight of the regulariser (the PINN's kind, `regulariser`) on the grid nodes.
+    /// Regulariser kind on the grid nodes.
+    pub regulariser: Regulariser,
+    /// Weight of the regulariser.
     pub reg_weight: f64,
     /// Stop when the solver's χ² reaches this.
     pub chi2_target: f64,
+    /// Frequency pairs of the Fourier-feature detail network trained beside the
+    /// velocity network (0: the velocity network alone).
+    pub detail_features: usize,
+    /// Length scale of the detail frequencies (standard deviation `1/wavelength`), m.
+    pub detail_wavelength_m: f64,
+    /// Hidden width of the detail network.
+    pub detail_width: usize,
+    /// Hidden layers of the detail network.
+    pub detail_depth: usize,
 }
 
 impl Default for RefineSettings {
@@ -58,8 +71,13 @@ impl Default for RefineSettings {
         RefineSettings {
             iterations: 10,
             inner_steps: 100,
-            reg_weight: 1e-3,
+            regulariser: Regulariser::TotalVariation,
+            reg_weight: 3.0,
             chi2_target: 1.0,
+            detail_features: 32,
+            detail_wavelength_m: 8.0,
+            detail_width: 32,
+            detail_depth: 2,
         }
     }
 }
@@ -81,6 +99,17 @@ impl RefineSettings {
                 "refine.reg_weight = {} must be zero or a positive number",
                 self.reg_weight
             ));
+        }
+        if self.detail_features > 0 {
+            if !(self.detail_wavelength_m.is_finite() && self.detail_wavelength_m > 0.0) {
+                return Err(format!(
+                    "refine.detail_wavelength_m = {} must be a positive length in metres",
+                    self.detail_wavelength_m
+                ));
+            }
+            if self.detail_width == 0 || self.detail_depth == 0 {
+                return Err("refine.detail_width and refine.detail_depth must be at least 1 (or refine.detail_features = 0 to leave the detail network out)".into());
+            }
         }
         Ok(())
     }
@@ -155,6 +184,153 @@ pub struct RefineOutcome {
     pub chi2_after: f64,
     /// Outer iteration whose velocity was kept (0: the starting one).
     pub kept: usize,
+    /// The outer iteration a resumed refinement continued with (`None`: from the start,
+    /// also when the state given did not belong to this model, grid and settings).
+    pub resumed_from: Option<usize>,
+}
+
+/// What the caller sees of a running refinement; both methods do nothing by default.
+pub trait RefineObserver {
+    /// After each outer iteration's forward solve.
+    fn on_iteration(&mut self, _log: &RefineLog) {}
+    /// At the start of each outer iteration: the state to continue from if the run
+    /// stops here (write it somewhere to make the stage resumable).
+    fn on_state(&mut self, _state: &RefineState) {}
+}
+
+/// The refinement at the start of an outer iteration: everything needed to continue
+/// it bit for bit after an interruption (the inner L-BFGS starts afresh every outer
+/// iteration, so it has no state to keep). Plain bytes, like the PINN's checkpoint.
+#[derive(Clone, Debug, PartialEq)]
+pub struct RefineState {
+    fingerprint: u64,
+    iteration: usize,
+    params: Vec<f64>,
+    best_chi2: f64,
+    best_params: Vec<f64>,
+    best_iteration: usize,
+    predicted: f64,
+    history: Vec<RefineLog>,
+}
+
+const STATE_MAGIC: &[u8; 8] = b"SFREFINE";
+const STATE_VERSION: u32 = 1;
+
+impl RefineState {
+    /// The outer iteration the refinement continues with.
+    pub fn iteration(&self) -> usize {
+        self.iteration
+    }
+
+    /// Serialises the state.
+    pub fn to_bytes(&self) -> Vec<u8> {
+        let mut w = Vec::with_capacity(16 * self.params.len() + 48 * self.history.len() + 64);
+        w.extend_from_slice(STATE_MAGIC);
+        put_u32(&mut w, STATE_VERSION);
+        put_u64(&mut w, self.fingerprint);
+        put_u64(&mut w, self.iteration as u64);
+        for v in [&self.params, &self.best_params] {
+            put_u64(&mut w, v.len() as u64);
+            for &x in v.iter() {
+                put_f64(&mut w, x);
+            }
+        }
+        put_f64(&mut w, self.best_chi2);
+        put_u64(&mut w, self.best_iteration as u64);
+        put_f64(&mut w, self.predicted);
+        put_u64(&mut w, self.history.len() as u64);
+        for h in &self.history {
+            put_u64(&mut w, h.iteration as u64);
+            for x in [h.chi2, h.rms_ms, h.regulariser, h.predicted_chi2] {
+                put_f64(&mut w, x);
+            }
+        }
+        w
+    }
+
+    /// Reads bytes written by [`RefineState::to_bytes`].
+    pub fn from_bytes(bytes: &[u8]) -> Result<RefineState, PinnError> {
+        let mut r = Reader::new(bytes);
+        if r.take(8)? != STATE_MAGIC {
+            return Err(PinnError::CheckpointCorrupt(
+                "it is not a slowfield refinement state".into(),
+            ));
+        }
+        let ver = r.u32()?;
+        if ver != STATE_VERSION {
+            return Err(PinnError::CheckpointCorrupt(format!(
+                "refinement state format version {ver}, this build reads {STATE_VERSION}"
+            )));
+        }
+        let fingerprint = r.u64()?;
+        let iteration = r.u64()? as usize;
+        let mut vecs = Vec::new();
+        for _ in 0..2 {
+            let n = r.len(8)?;
+            let mut v = Vec::with_capacity(n);
+            for _ in 0..n {
+                v.push(r.f64()?);
+            }
+            vecs.push(v);
+        }
+        let best_chi2 = r.f64()?;
+        let best_iteration = r.u64()? as usize;
+        let predicted = r.f64()?;
+        let n = r.len(40)?;
+        let mut history = Vec::with_capacity(n);
+        for _ in 0..n {
+            let iteration = r.u64()? as usize;
+            let mut f = [0.0; 4];
+            for x in &mut f {
+                *x = r.f64()?;
+            }
+            history.push(RefineLog {
+                iteration,
+                chi2: f[0],
+                rms_ms: f[1],
+                regulariser: f[2],
+                predicted_chi2: f[3],
+            });
+        }
+        let best_params = vecs.pop().unwrap_or_default();
+        let params = vecs.pop().unwrap_or_default();
+        Ok(RefineState {
+            fingerprint,
+            iteration,
+            params,
+            best_chi2,
+            best_params,
+            best_iteration,
+            predicted,
+            history,
+        })
+    }
+}
+
+/// FNV-1a hash of what a refinement's course depends on: the velocity network it
+/// starts from, the grid and the settings (all but `iterations`, so a resumed run may
+/// go further).
+fn state_fingerprint(model: &TrainedModel, grid: &GridSpec, settings: &RefineSettings) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    let mut eat = |bytes: &[u8]| {
+        for &b in bytes {
+            h ^= b as u64;
+            h = h.wrapping_mul(0x0100_0000_01b3);
+        }
+    };
+    for x in &model.vel {
+        eat(&x.to_bits().to_le_bytes());
+    }
+    for x in [grid.x0, grid.z0, grid.dx, grid.dz] {
+        eat(&x.to_bits().to_le_bytes());
+    }
+    eat(&(grid.nx as u64).to_le_bytes());
+    eat(&(grid.nz as u64).to_le_bytes());
+    let mut s = settings.clone();
+    s.iterations = 0;
+    eat(serde_json::to_string(&s).unwrap_or_default().as_bytes());
+    eat(&model.settings.seed.to_le_bytes());
+    h
 }
 
 /// Refines the velocity network of `model` against `misfit` on the nodes of `grid`
@@ -164,7 +340,8 @@ pub fn refine(
     grid: &GridSpec,
     settings: &RefineSettings,
     misfit: &mut dyn TimeMisfit,
-    on_iter: &mut dyn FnMut(&RefineLog),
+    resume: Option<&RefineState>,
+    observer: &mut dyn RefineObserver,
 ) -> Result<RefineOutcome, PinnError> {
     settings.validate().map_err(|problem| PinnError::Setting {
         name: "refine",
@@ -185,18 +362,62 @@ pub fn refine(
             }
         }
     }
+    let detail = (settings.detail_features > 0).then(|| {
+        let d = Detail::new(
+            &model.domain,
+            model.settings.dim == 1,
+            settings.detail_features,
+            settings.detail_wavelength_m,
+            settings.detail_width,
+            settings.detail_depth,
+            model.settings.activation,
+            model.settings.fast_tanh,
+            model.settings.seed,
+        );
+        let b = d.batch(&model.domain, &points);
+        (d, b)
+    });
     let ev = VelEval {
         model,
         vb: model.vel_batch(points.iter().copied()),
+        detail: detail.as_ref(),
+        regulariser: settings.regulariser,
         inv_n: 1.0 / nodes.len().max(1) as f64,
         ad: Device::flex().autodiff(),
     };
     let w_r = settings.reg_weight;
+    let n_vel = model.vel.len();
     let mut p: Vec<f64> = model.vel.iter().map(|&x| x as f64).collect();
+    if let Some((d, _)) = &detail {
+        p.extend(d.params.iter().map(|&x| x as f64));
+    }
     let mut history: Vec<RefineLog> = Vec::new();
     let mut best = (f64::INFINITY, p.clone(), 0usize);
     let mut predicted = f64::NAN;
-    for it in 0..=settings.iterations {
+    let fingerprint = state_fingerprint(model, grid, settings);
+    let mut first = 0;
+    let resumed_from = match resume {
+        Some(st) if st.fingerprint == fingerprint && st.params.len() == p.len() => {
+            p = st.params.clone();
+            best = (st.best_chi2, st.best_params.clone(), st.best_iteration);
+            predicted = st.predicted;
+            history = st.history.clone();
+            first = st.iteration;
+            Some(first)
+        }
+        _ => None,
+    };
+    for it in first..=settings.iterations {
+        observer.on_state(&RefineState {
+            fingerprint,
+            iteration: it,
+            params: p.clone(),
+            best_chi2: best.0,
+            best_params: best.1.clone(),
+            best_iteration: best.2,
+            predicted,
+            history: history.clone(),
+        });
         let (_, _, _, values, reg_value) = ev.forward(&p);
         let mut on_grid = vec![f64::NAN; grid.len()];
         for (&k, &val) in nodes.iter().zip(&values) {
@@ -211,7 +432,7 @@ pub fn refine(
             regulariser: reg_value,
             predicted_chi2: predicted,
         };
-        on_iter(&log);
+        observer.on_iteration(&log);
         history.push(log);
         if !chi2.is_finite() {
             break;
@@ -254,7 +475,12 @@ pub fn refine(
         predicted = bchi;
     }
     let mut out = model.clone();
-    out.vel = best.1.iter().map(|&x| x as f32).collect();
+    let kept: Vec<f32> = best.1.iter().map(|&x| x as f32).collect();
+    out.vel = kept[..n_vel].to_vec();
+    out.detail = detail.map(|(mut d, _)| {
+        d.params = kept[n_vel..].to_vec();
+        d
+    });
     let chi2_before = history.first().map_or(f64::NAN, |h| h.chi2);
     let chi2_after = history.get(best.2).map_or(chi2_before, |h| h.chi2);
     Ok(RefineOutcome {
@@ -263,6 +489,7 @@ pub fn refine(
         chi2_before,
         chi2_after,
         kept: best.2,
+        resumed_from,
     })
 }
 
@@ -270,27 +497,60 @@ pub fn refine(
 struct VelEval<'a> {
     model: &'a TrainedModel,
     vb: VelBatch,
+    detail: Option<&'a (Detail, DetailBatch)>,
+    regulariser: Regulariser,
     inv_n: f64,
     ad: Device,
 }
 
+/// The tracked networks of one evaluation: velocity, then detail.
+struct Nets(NetTensors, Option<NetTensors>);
+
+impl Nets {
+    /// The gradient of every parameter, in the order of the flat parameter vector.
+    fn grads(&self, grads: &burn::tensor::Gradients) -> Vec<f64> {
+        let mut g: Vec<f64> = self.0.grads(grads).into_iter().map(f64::from).collect();
+        if let Some(d) = &self.1 {
+            g.extend(d.grads(grads).into_iter().map(f64::from));
+        }
+        g
+    }
+}
+
 impl VelEval<'_> {
-    /// The network, the velocity and the regulariser (both tracked), and their values.
-    fn forward(&self, p: &[f64]) -> (NetTensors, Tensor<2>, Tensor<1>, Vec<f64>, f64) {
+    /// The networks, the velocity and the regulariser (both tracked), and their values.
+    fn forward(&self, p: &[f64]) -> (Nets, Tensor<2>, Tensor<1>, Vec<f64>, f64) {
         let m = self.model;
         let st = &m.settings;
         let params: Vec<f32> = p.iter().map(|&x| x as f32).collect();
+        let n_vel = m.vel.len();
         let vel = NetTensors::new(
             &m.vel_shape,
-            &params,
+            &params[..n_vel],
             st.activation,
             st.fast_tanh,
             &self.ad,
             true,
         );
-        let (v, [vx, vz]) = velocity_tangent(&vel, &self.vb, &m.frame, &self.ad);
+        let (det, extra) = match self.detail {
+            Some((d, b)) => {
+                let net = d.net(&params[n_vel..], &self.ad, true);
+                let t = |v: &Vec<f32>| {
+                    Tensor::<2>::from_data(TensorData::new(v.clone(), [b.n, b.d_in]), &self.ad)
+                };
+                let (o, dv) = net.forward_tangent(t(&b.x), vec![t(&b.dx), t(&b.dz)]);
+                let mut dv = dv.into_iter();
+                let extra = match (dv.next(), dv.next()) {
+                    (Some(ox), Some(oz)) => Some((o, [ox, oz])),
+                    _ => None,
+                };
+                (Some(net), extra)
+            }
+            None => (None, None),
+        };
+        let (v, [vx, vz]) = velocity_tangent(&vel, &self.vb, &m.frame, &self.ad, extra);
         let g2 = vx.clone().mul(vx).add(vz.clone().mul(vz));
-        let reg = match st.regulariser {
+        let reg = match self.regulariser {
             Regulariser::Smoothness => g2.sum().mul_scalar(self.inv_n),
             Regulariser::TotalVariation => g2.add_scalar(1e-6).sqrt().sum().mul_scalar(self.inv_n),
         };
@@ -299,7 +559,7 @@ impl VelEval<'_> {
             .first()
             .copied()
             .unwrap_or(f64::NAN);
-        (vel, v, reg, values, reg_value)
+        (Nets(vel, det), v, reg, values, reg_value)
     }
 }
 
@@ -358,7 +618,7 @@ impl Inner<'_> {
         let gt = Tensor::<2>::from_data(TensorData::new(gv, [n, 1]), &self.ev.ad);
         let loss = v.mul(gt).sum().add(reg.mul_scalar(self.w_r));
         let grads = loss.backward();
-        let g: Vec<f64> = vel.grads(&grads).into_iter().map(f64::from).collect();
+        let g = vel.grads(&grads);
         let mut best = self.best.borrow_mut();
         if obj.is_finite() && obj < best.0 {
             *best = (obj, p.to_vec(), chi2);

@@ -6,6 +6,7 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
 use super::checkpoint::{fingerprint, Checkpoint};
+use super::detail::Detail;
 use super::geom::{Frame, TAU_FEATURES};
 use super::net::{MlpShape, NetTensors};
 use super::sampler::{Pair, Sampler};
@@ -34,6 +35,8 @@ pub struct TrainedModel {
     pub(super) vel_shape: MlpShape,
     pub(super) tau: Vec<f32>,
     pub(super) vel: Vec<f32>,
+    /// The refinement's Fourier-feature network, added to the velocity logit.
+    pub(super) detail: Option<Detail>,
 }
 
 impl std::fmt::Debug for TrainedModel {
@@ -92,6 +95,7 @@ impl TrainedModel {
             vel_shape,
             tau,
             vel,
+            detail: None,
         }
     }
 
@@ -171,7 +175,11 @@ impl TrainedModel {
         let mut out = Vec::with_capacity(points.len());
         for chunk in points.chunks(CHUNK) {
             let vb = self.vel_batch(chunk.iter().copied());
-            let v = velocity_value(&vel, &vb, &self.frame, &device);
+            let extra = self
+                .detail
+                .as_ref()
+                .map(|d| d.logit(&self.domain, chunk, &device));
+            let v = velocity_value(&vel, &vb, &self.frame, &device, extra);
             out.extend(to_f64(v));
         }
         out
@@ -282,14 +290,23 @@ fn time_value(tau: &NetTensors, tb: &TauBatch, device: &Device) -> Tensor<2> {
     tau.forward(x).add_scalar(1.0).mul(t0)
 }
 
-/// Velocity values of a batch.
-fn velocity_value(vel: &NetTensors, vb: &VelBatch, f: &Frame, device: &Device) -> Tensor<2> {
+/// Velocity values of a batch; `extra` is a further logit (the refinement's detail
+/// network), added in the same order as in [`velocity_tangent`].
+fn velocity_value(
+    vel: &NetTensors,
+    vb: &VelBatch,
+    f: &Frame,
+    device: &Device,
+    extra: Option<Tensor<2>>,
+) -> Tensor<2> {
     let x = tensor2(vb.x.clone(), vb.n, vb.d_in, device);
     let l = tensor2(vb.l.clone(), vb.n, 1, device);
     let span = f.v_max - f.v_min;
-    sigmoid(vel.forward(x).add(l))
-        .mul_scalar(span)
-        .add_scalar(f.v_min)
+    let mut o = vel.forward(x);
+    if let Some(e) = extra {
+        o = o.add(e);
+    }
+    sigmoid(o.add(l)).mul_scalar(span).add_scalar(f.v_min)
 }
 
 /// Eikonal residual `v·|∇T| − 1` and the scaled velocity gradient `(L/Δv)∇v`
@@ -304,18 +321,20 @@ fn physics(
 ) -> (Tensor<2>, [Tensor<2>; 2]) {
     let (gtx, gtz) = time_grad(tau, tb, device);
     let grad_t = gtx.clone().mul(gtx).add(gtz.clone().mul(gtz)).sqrt();
-    let (v, dv) = velocity_tangent(vel, vb, f, device);
+    let (v, dv) = velocity_tangent(vel, vb, f, device, None);
     let res = v.mul(grad_t).sub_scalar(1.0);
     (res, dv)
 }
 
 /// Velocity and its scaled gradient `(L/Δv)∇v` (L half the domain depth) at the points
-/// of a batch.
+/// of a batch; `extra` is a further logit with its x and z derivatives (the
+/// refinement's detail network).
 pub(super) fn velocity_tangent(
     vel: &NetTensors,
     vb: &VelBatch,
     f: &Frame,
     device: &Device,
+    extra: Option<(Tensor<2>, [Tensor<2>; 2])>,
 ) -> (Tensor<2>, [Tensor<2>; 2]) {
     let n = vb.n;
     let xv = tensor2(vb.x.clone(), vb.n, vb.d_in, device);
@@ -326,10 +345,16 @@ pub(super) fn velocity_tangent(
     let lz = tensor2(vb.lz.clone(), vb.n, 1, device);
     let (o, dv) = vel.forward_tangent(xv, vec![dxv, dzv]);
     let mut dv = dv.into_iter();
-    let (ox, oz) = (
+    let (mut o, mut ox, mut oz) = (
+        o,
         dv.next().unwrap_or_else(|| unreachable_tangent(n, device)),
         dv.next().unwrap_or_else(|| unreachable_tangent(n, device)),
     );
+    if let Some((e, [ex, ez])) = extra {
+        o = o.add(e);
+        ox = ox.add(ex);
+        oz = oz.add(ez);
+    }
     let span = f.v_max - f.v_min;
     let sg = sigmoid(o.add(l));
     let v = sg.clone().mul_scalar(span).add_scalar(f.v_min);

@@ -22,6 +22,8 @@ pub const CAUTION: &str = "A refraction tomogram is one of many models that fit 
 
 /// Name of the checkpoint file inside an output folder.
 pub const CHECKPOINT: &str = "checkpoint.bin";
+/// Name of the refinement stage's state inside an output folder.
+pub const REFINE_STATE: &str = "refine.bin";
 
 /// What the caller asks for.
 #[derive(Debug, Clone)]
@@ -34,6 +36,8 @@ pub struct InvertJob {
     pub settings: RunSettings,
     /// Checkpoint to continue from.
     pub resume: Option<Checkpoint>,
+    /// Refinement state to continue from (used when it belongs to the resumed model).
+    pub resume_refine: Option<pinn::RefineState>,
     /// Show a progress bar (on a terminal).
     pub progress: bool,
 }
@@ -163,6 +167,30 @@ impl Observer for Watch {
     }
 }
 
+/// Progress bar and state writer of the refinement stage.
+struct RefineWatch {
+    bar: Option<indicatif::ProgressBar>,
+    path: PathBuf,
+    error: Option<String>,
+}
+
+impl pinn::RefineObserver for RefineWatch {
+    fn on_iteration(&mut self, l: &pinn::RefineLog) {
+        if let Some(b) = &self.bar {
+            b.set_position(l.iteration as u64);
+            b.set_message(format!(
+                "refine: fast-marching χ² {:.2}  rms {:.2} ms",
+                l.chi2, l.rms_ms
+            ));
+        }
+    }
+    fn on_state(&mut self, st: &pinn::RefineState) {
+        if let Err(e) = write_atomic(&self.path, &st.to_bytes()) {
+            self.error = Some(format!("cannot write {}: {e}", self.path.display()));
+        }
+    }
+}
+
 /// What [`run`] hands back besides the files it wrote.
 #[derive(Debug, Clone)]
 pub struct InvertOutcome {
@@ -235,6 +263,8 @@ pub struct RefineSummary {
     /// (iteration, χ², χ² the previous iteration's linearisation predicted) of every
     /// iteration.
     pub chi2: Vec<(usize, f64, f64)>,
+    /// The iteration a resumed run continued from (`None`: the stage ran from the start).
+    pub resumed_from: Option<usize>,
 }
 
 /// Depth to one velocity along the line.
@@ -397,24 +427,29 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertOutcome> {
             b.set_message("refining against fast marching");
         }
         let mut oracle = verify::FmmMisfit::new(survey, geo.grid, sigma);
-        let bar = watch.bar.clone();
-        let mut on_iter = |l: &pinn::RefineLog| {
-            if let Some(b) = &bar {
-                b.set_position(l.iteration as u64);
-                b.set_message(format!(
-                    "refine: fast-marching χ² {:.2}  rms {:.2} ms",
-                    l.chi2, l.rms_ms
-                ));
-            }
+        let mut rwatch = RefineWatch {
+            bar: watch.bar.clone(),
+            path: job.out.join(REFINE_STATE),
+            error: None,
         };
         let r = pinn::refine(
             &outcome.model,
             &geo.grid,
             &s.refine,
             &mut oracle,
-            &mut on_iter,
+            job.resume_refine.as_ref(),
+            &mut rwatch,
         )
         .map_err(|e| anyhow::anyhow!("{e}"))?;
+        if let Some(e) = rwatch.error {
+            eprintln!("warning: {e}");
+        }
+        if let (Some(st), None) = (&job.resume_refine, r.resumed_from) {
+            eprintln!(
+                "note: the refinement state ({REFINE_STATE}, iteration {}) belongs to another model, grid or [refine] settings; the refinement was redone from the start",
+                st.iteration()
+            );
+        }
         if let Some(b) = &watch.bar {
             b.finish_and_clear();
         }
@@ -428,6 +463,7 @@ pub fn run(survey: &Survey, job: &InvertJob) -> anyhow::Result<InvertOutcome> {
                 .iter()
                 .map(|h| (h.iteration, h.chi2, h.predicted_chi2))
                 .collect(),
+            resumed_from: r.resumed_from,
         };
         (r.model, Some(summary))
     } else {
@@ -821,7 +857,7 @@ fn html_report(r: &InvertReport) -> String {
 <p>Depth to {:.0} m/s where the rays reach it: <code>interface-depth.csv</code>.</p>\
 <h2>Travel times</h2><img src=\"traveltimes.png\" alt=\"travel-time curves\">\
 <h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">{}\
-<p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin.</p></body></html>\n",
+<p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin, refine.bin.</p></body></html>\n",
         html_escape(r.caution),
         t,
         warn,

@@ -161,13 +161,30 @@ pub fn forward(a: &ForwardArgs) -> anyhow::Result<ExitCode> {
 /// The settings of `invert`: defaults, then the file (or the resumed run's), then flags.
 pub fn invert_settings(
     a: &InvertArgs,
-) -> anyhow::Result<(RunSettings, Option<crate::pinn::Checkpoint>)> {
+) -> anyhow::Result<(
+    RunSettings,
+    Option<crate::pinn::Checkpoint>,
+    Option<crate::pinn::RefineState>,
+)> {
     let mut s = match &a.config {
         Some(p) => RunSettings::read(p).map_err(|e| anyhow::anyhow!("{e}"))?,
         None => RunSettings::default(),
     };
     let mut resume = None;
+    let mut resume_refine = None;
     if let Some(dir) = &a.resume {
+        let rs_path = dir.join(invert::REFINE_STATE);
+        if rs_path.exists() {
+            let bytes = std::fs::read(&rs_path)
+                .with_context(|| format!("cannot read {}", rs_path.display()))?;
+            let rs = crate::pinn::RefineState::from_bytes(&bytes).map_err(|e| {
+                anyhow::anyhow!(
+                    "{}: {e}; delete it to redo the refinement from the PINN checkpoint",
+                    rs_path.display()
+                )
+            })?;
+            resume_refine = Some(rs);
+        }
         let cp_path = dir.join(invert::CHECKPOINT);
         let bytes = std::fs::read(&cp_path).with_context(|| {
             format!(
@@ -221,12 +238,12 @@ pub fn invert_settings(
     if let Some(t) = a.threads {
         s.pinn.threads = t;
     }
-    Ok((s, resume))
+    Ok((s, resume, resume_refine))
 }
 
 /// `slowfield invert`.
 pub fn invert(a: &InvertArgs) -> anyhow::Result<ExitCode> {
-    let (settings, resume) = invert_settings(a)?;
+    let (settings, resume, resume_refine) = invert_settings(a)?;
     settings
         .validate()
         .map_err(|e| anyhow::anyhow!("invalid setting: {e}"))?;
@@ -244,6 +261,7 @@ pub fn invert(a: &InvertArgs) -> anyhow::Result<ExitCode> {
         out: a.output.clone(),
         settings,
         resume,
+        resume_refine,
         progress: invert::interactive(),
     };
     let report = invert::run(&survey, &job)?.report;
@@ -295,6 +313,7 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
         out: pinn_dir.clone(),
         settings,
         resume: None,
+        resume_refine: None,
         progress: invert::interactive(),
     };
     let inv = invert::run(&survey, &job)?;
