@@ -513,6 +513,18 @@ pub fn traveltime_curves(
     })
 }
 
+/// Tick label on a log axis: plain digits from 0.01 to 10 000 ("0.2", "9", "300"),
+/// powers of ten written as such beyond.
+fn log_tick(v: &f64) -> String {
+    let a = v.abs();
+    if (0.00999..10_001.0).contains(&a) {
+        let digits = (-a.log10().floor()).max(0.0) as usize;
+        format!("{v:.digits$}")
+    } else {
+        format!("{v:.0e}")
+    }
+}
+
 /// Loss curves on a logarithmic axis; each series is (name, [(step, value)]). The axis
 /// spans at least from the decade below the smallest value to the one above the
 /// largest, so it always carries labelled ticks.
@@ -551,7 +563,7 @@ pub fn loss_curves(
             .x_desc(x_label)
             .y_desc(y_label)
             .x_label_formatter(&tick)
-            .y_label_formatter(&|v| format!("{v:.0e}"))
+            .y_label_formatter(&log_tick)
             .label_style(("sans-serif", 15))
             .axis_desc_style(("sans-serif", 16))
             .draw()?;
