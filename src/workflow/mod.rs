@@ -301,7 +301,7 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
     )?;
     let pinn_dir = out.join("pinn");
     say(&format!(
-        "2/3 PINN inversion and refinement against fast marching into {} (under a minute on 2 cores)",
+        "2/3 PINN inversion and refinement against fast marching into {} (about a minute on 2 cores)",
         pinn_dir.display()
     ));
     let mut settings = RunSettings::default();
