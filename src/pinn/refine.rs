@@ -36,7 +36,7 @@ use serde::{Deserialize, Serialize};
 use super::checkpoint::{put_f64, put_u32, put_u64, Reader};
 use super::detail::{Detail, DetailBatch};
 use super::net::NetTensors;
-use super::train::{to_f64, velocity_tangent, TrainedModel, VelBatch};
+use super::train::{to_f64, velocity_tangent, velocity_value, TrainedModel, VelBatch};
 use super::{PinnError, Regulariser};
 use crate::model::GridSpec;
 
@@ -348,9 +348,12 @@ pub fn refine(
         problem,
         hint: "see the [refine] table of settings.toml",
     })?;
-    // ground nodes of the grid: where the velocity is sampled and regularised
+    // ground nodes of the grid: where the velocity is sampled; the regulariser is
+    // taken on every other node in each direction (the networks' shortest wavelengths
+    // are several cells long, and its slopes cost three times a value each)
     let mut nodes = Vec::new();
     let mut points = Vec::new();
+    let mut lattice = Vec::new();
     let mut slot = vec![usize::MAX; grid.len()];
     for j in 0..grid.nz {
         for i in 0..grid.nx {
@@ -359,6 +362,9 @@ pub fn refine(
                 slot[grid.idx(i, j)] = nodes.len();
                 nodes.push(grid.idx(i, j));
                 points.push(p);
+                if i % 2 == 0 && j % 2 == 0 {
+                    lattice.push(p);
+                }
             }
         }
     }
@@ -375,20 +381,22 @@ pub fn refine(
             model.settings.seed,
         );
         let b = d.batch(&model.domain, &points);
-        (d, b)
+        let br = d.batch(&model.domain, &lattice);
+        (d, b, br)
     });
     let ev = VelEval {
         model,
         vb: model.vel_batch(points.iter().copied()),
+        vb_reg: model.vel_batch(lattice.iter().copied()),
         detail: detail.as_ref(),
         regulariser: settings.regulariser,
-        inv_n: 1.0 / nodes.len().max(1) as f64,
+        inv_n: 1.0 / lattice.len().max(1) as f64,
         ad: Device::flex().autodiff(),
     };
     let w_r = settings.reg_weight;
     let n_vel = model.vel.len();
     let mut p: Vec<f64> = model.vel.iter().map(|&x| x as f64).collect();
-    if let Some((d, _)) = &detail {
+    if let Some((d, _, _)) = &detail {
         p.extend(d.params.iter().map(|&x| x as f64));
     }
     let mut history: Vec<RefineLog> = Vec::new();
@@ -477,7 +485,7 @@ pub fn refine(
     let mut out = model.clone();
     let kept: Vec<f32> = best.1.iter().map(|&x| x as f32).collect();
     out.vel = kept[..n_vel].to_vec();
-    out.detail = detail.map(|(mut d, _)| {
+    out.detail = detail.map(|(mut d, _, _)| {
         d.params = kept[n_vel..].to_vec();
         d
     });
@@ -493,11 +501,14 @@ pub fn refine(
     })
 }
 
-/// The velocity network evaluated at the ground nodes of the grid.
+/// The velocity network evaluated at the ground nodes of the grid (values) and on a
+/// lattice of every other node (values and slopes, for the regulariser).
 struct VelEval<'a> {
     model: &'a TrainedModel,
     vb: VelBatch,
-    detail: Option<&'a (Detail, DetailBatch)>,
+    vb_reg: VelBatch,
+    /// the detail network with its features at the nodes and on the lattice
+    detail: Option<&'a (Detail, DetailBatch, DetailBatch)>,
     regulariser: Regulariser,
     inv_n: f64,
     ad: Device,
@@ -532,23 +543,25 @@ impl VelEval<'_> {
             &self.ad,
             true,
         );
-        let (det, extra) = match self.detail {
-            Some((d, b)) => {
+        let (det, extra, extra_reg) = match self.detail {
+            Some((d, b, br)) => {
                 let net = d.net(&params[n_vel..], &self.ad, true);
-                let t = |v: &Vec<f32>| {
+                let t = |v: &Vec<f32>, b: &DetailBatch| {
                     Tensor::<2>::from_data(TensorData::new(v.clone(), [b.n, b.d_in]), &self.ad)
                 };
-                let (o, dv) = net.forward_tangent(t(&b.x), vec![t(&b.dx), t(&b.dz)]);
+                let e = net.forward(t(&b.x, b));
+                let (o, dv) = net.forward_tangent(t(&br.x, br), vec![t(&br.dx, br), t(&br.dz, br)]);
                 let mut dv = dv.into_iter();
-                let extra = match (dv.next(), dv.next()) {
+                let extra_reg = match (dv.next(), dv.next()) {
                     (Some(ox), Some(oz)) => Some((o, [ox, oz])),
                     _ => None,
                 };
-                (Some(net), extra)
+                (Some(net), Some(e), extra_reg)
             }
-            None => (None, None),
+            None => (None, None, None),
         };
-        let (v, [vx, vz]) = velocity_tangent(&vel, &self.vb, &m.frame, &self.ad, extra);
+        let v = velocity_value(&vel, &self.vb, &m.frame, &self.ad, extra);
+        let (_, [vx, vz]) = velocity_tangent(&vel, &self.vb_reg, &m.frame, &self.ad, extra_reg);
         let g2 = vx.clone().mul(vx).add(vz.clone().mul(vz));
         let reg = match self.regulariser {
             Regulariser::Smoothness => g2.sum().mul_scalar(self.inv_n),

@@ -292,7 +292,7 @@ fn time_value(tau: &NetTensors, tb: &TauBatch, device: &Device) -> Tensor<2> {
 
 /// Velocity values of a batch; `extra` is a further logit (the refinement's detail
 /// network), added in the same order as in [`velocity_tangent`].
-fn velocity_value(
+pub(super) fn velocity_value(
     vel: &NetTensors,
     vb: &VelBatch,
     f: &Frame,
