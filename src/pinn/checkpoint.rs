@@ -89,18 +89,8 @@ impl Checkpoint {
 
     /// Reads bytes written by [`Checkpoint::to_bytes`].
     pub fn from_bytes(bytes: &[u8]) -> Result<Checkpoint, PinnError> {
-        let mut r = Reader { b: bytes, at: 0 };
-        if r.take(8)? != MAGIC {
-            return Err(PinnError::CheckpointCorrupt(
-                "it is not a slowfield PINN checkpoint".into(),
-            ));
-        }
-        let ver = r.u32()?;
-        if ver != VERSION {
-            return Err(PinnError::CheckpointCorrupt(format!(
-                "format version {ver}, this build reads {VERSION}"
-            )));
-        }
+        let mut r = Reader::new(bytes);
+        r.header(MAGIC, VERSION, "a slowfield PINN checkpoint")?;
         let fingerprint = r.u64()?;
         let step = r.u64()? as usize;
         let lr_scale = r.f64()?;
@@ -200,6 +190,24 @@ impl<'a> Reader<'a> {
     pub(super) fn new(b: &'a [u8]) -> Reader<'a> {
         Reader { b, at: 0 }
     }
+    /// Checks the magic bytes and the format version; `what` names the kind of file.
+    pub(super) fn header(
+        &mut self,
+        magic: &[u8; 8],
+        version: u32,
+        what: &str,
+    ) -> Result<(), PinnError> {
+        if self.take(8)? != magic {
+            return Err(PinnError::CheckpointCorrupt(format!("it is not {what}")));
+        }
+        let ver = self.u32()?;
+        if ver != version {
+            return Err(PinnError::CheckpointCorrupt(format!(
+                "format version {ver} of {what}, this build reads {version}"
+            )));
+        }
+        Ok(())
+    }
     pub(super) fn take(&mut self, n: usize) -> Result<&'a [u8], PinnError> {
         if self.b.len() - self.at < n {
             return Err(PinnError::CheckpointCorrupt(
@@ -244,13 +252,8 @@ pub(crate) fn fingerprint(
     start: &StartModel,
     settings: &PinnSettings,
 ) -> u64 {
-    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    let mut eat = |bytes: &[u8]| {
-        for &b in bytes {
-            h ^= b as u64;
-            h = h.wrapping_mul(0x0100_0000_01b3);
-        }
-    };
+    let mut fnv = Fnv::new();
+    let mut eat = |bytes: &[u8]| fnv.eat(bytes);
     for p in picks {
         for x in [
             p.source[0],
@@ -276,5 +279,21 @@ pub(crate) fn fingerprint(
     s.checkpoint_every = 0;
     s.threads = 0;
     eat(serde_json::to_string(&s).unwrap_or_default().as_bytes());
-    h
+    fnv.0
+}
+
+/// FNV-1a (Fowler–Noll–Vo), 64 bits: the fingerprints of checkpoints and refinement
+/// states.
+pub(super) struct Fnv(pub(super) u64);
+
+impl Fnv {
+    pub(super) fn new() -> Fnv {
+        Fnv(0xcbf2_9ce4_8422_2325)
+    }
+    pub(super) fn eat(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.0 ^= b as u64;
+            self.0 = self.0.wrapping_mul(0x0100_0000_01b3);
+        }
+    }
 }

@@ -33,7 +33,7 @@ use argmin::solver::quasinewton::LBFGS;
 use burn::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use super::checkpoint::{put_f64, put_u32, put_u64, Reader};
+use super::checkpoint::{put_f64, put_u32, put_u64, Fnv, Reader};
 use super::detail::{Detail, DetailBatch};
 use super::net::NetTensors;
 use super::train::{to_f64, velocity_tangent, velocity_value, TrainedModel, VelBatch};
@@ -251,17 +251,7 @@ impl RefineState {
     /// Reads bytes written by [`RefineState::to_bytes`].
     pub fn from_bytes(bytes: &[u8]) -> Result<RefineState, PinnError> {
         let mut r = Reader::new(bytes);
-        if r.take(8)? != STATE_MAGIC {
-            return Err(PinnError::CheckpointCorrupt(
-                "it is not a slowfield refinement state".into(),
-            ));
-        }
-        let ver = r.u32()?;
-        if ver != STATE_VERSION {
-            return Err(PinnError::CheckpointCorrupt(format!(
-                "refinement state format version {ver}, this build reads {STATE_VERSION}"
-            )));
-        }
+        r.header(STATE_MAGIC, STATE_VERSION, "a slowfield refinement state")?;
         let fingerprint = r.u64()?;
         let iteration = r.u64()? as usize;
         let mut vecs = Vec::new();
@@ -311,13 +301,8 @@ impl RefineState {
 /// starts from, the grid and the settings (all but `iterations`, so a resumed run may
 /// go further).
 fn state_fingerprint(model: &TrainedModel, grid: &GridSpec, settings: &RefineSettings) -> u64 {
-    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    let mut eat = |bytes: &[u8]| {
-        for &b in bytes {
-            h ^= b as u64;
-            h = h.wrapping_mul(0x0100_0000_01b3);
-        }
-    };
+    let mut fnv = Fnv::new();
+    let mut eat = |bytes: &[u8]| fnv.eat(bytes);
     for x in &model.vel {
         eat(&x.to_bits().to_le_bytes());
     }
@@ -330,7 +315,7 @@ fn state_fingerprint(model: &TrainedModel, grid: &GridSpec, settings: &RefineSet
     s.iterations = 0;
     eat(serde_json::to_string(&s).unwrap_or_default().as_bytes());
     eat(&model.settings.seed.to_le_bytes());
-    h
+    fnv.0
 }
 
 /// Refines the velocity network of `model` against `misfit` on the nodes of `grid`
