@@ -140,7 +140,8 @@ pub struct InvertArgs {
     /// Highest velocity the model may take, m/s.
     #[arg(long, value_name = "MPS")]
     pub v_max: Option<f64>,
-    /// Model regulariser.
+    /// Model regulariser of both stages (their weights: `[pinn] reg_weight` and
+    /// `[refine] reg_weight` in the settings).
     #[arg(long, value_enum)]
     pub regulariser: Option<RegFlag>,
     /// Worker threads (results do not depend on it).

@@ -174,4 +174,13 @@ fn an_interrupted_refinement_continues_to_the_same_result() {
         Some(RefineState::from_bytes(&std::fs::read(cut.join(REFINE_STATE)).unwrap()).unwrap());
     let r = run(&survey, &stale).unwrap();
     assert_eq!(r.report.refinement.as_ref().unwrap().resumed_from, None);
+    // nor is a state from beyond the iterations asked for
+    let mut fewer = settings.clone();
+    fewer.refine.iterations = 1;
+    let mut past = job(dir.path().join("past"), fewer);
+    past.resume_refine =
+        Some(RefineState::from_bytes(&std::fs::read(cut.join(REFINE_STATE)).unwrap()).unwrap());
+    let r = run(&survey, &past).unwrap();
+    let f = r.report.refinement.as_ref().unwrap();
+    assert_eq!((f.resumed_from, f.chi2.len()), (None, 2));
 }

@@ -152,6 +152,7 @@ impl Checkpoint {
                 "vector lengths disagree".into(),
             ));
         }
+        r.finish()?;
         Ok(Checkpoint {
             state: State {
                 step,
@@ -230,6 +231,17 @@ impl<'a> Reader<'a> {
     }
     pub(super) fn f64(&mut self) -> Result<f64, PinnError> {
         Ok(f64::from_bits(self.u64()?))
+    }
+    /// Fails when bytes are left over (a damaged length field, or another file).
+    pub(super) fn finish(&self) -> Result<(), PinnError> {
+        if self.at == self.b.len() {
+            Ok(())
+        } else {
+            Err(PinnError::CheckpointCorrupt(format!(
+                "{} bytes left over after the last field",
+                self.b.len() - self.at
+            )))
+        }
     }
     /// A length prefix, checked against the bytes left (`unit` bytes per item).
     pub(super) fn len(&mut self, unit: usize) -> Result<usize, PinnError> {

@@ -214,7 +214,10 @@ pub struct RefineState {
 }
 
 const STATE_MAGIC: &[u8; 8] = b"SFREFINE";
-const STATE_VERSION: u32 = 1;
+const STATE_VERSION: u32 = 2;
+/// Changes whenever the objective or its sampling changes, so a state written by an
+/// older build is not continued by a newer one (part of the fingerprint).
+const REFINE_ALGORITHM: &str = "detail-fourier-v1; tv on every other node";
 
 impl RefineState {
     /// The outer iteration the refinement continues with.
@@ -282,6 +285,7 @@ impl RefineState {
                 predicted_chi2: f[3],
             });
         }
+        r.finish()?;
         let best_params = vecs.pop().unwrap_or_default();
         let params = vecs.pop().unwrap_or_default();
         Ok(RefineState {
@@ -298,8 +302,8 @@ impl RefineState {
 }
 
 /// FNV-1a hash of what a refinement's course depends on: the velocity network it
-/// starts from, the grid and the settings (all but `iterations`, so a resumed run may
-/// go further).
+/// starts from, the grid, the settings (all but `iterations`, so a resumed run may go
+/// further; a state beyond the iterations asked for is not used) and the algorithm.
 fn state_fingerprint(model: &TrainedModel, grid: &GridSpec, settings: &RefineSettings) -> u64 {
     let mut fnv = Fnv::new();
     let mut eat = |bytes: &[u8]| fnv.eat(bytes);
@@ -315,6 +319,7 @@ fn state_fingerprint(model: &TrainedModel, grid: &GridSpec, settings: &RefineSet
     s.iterations = 0;
     eat(serde_json::to_string(&s).unwrap_or_default().as_bytes());
     eat(&model.settings.seed.to_le_bytes());
+    eat(REFINE_ALGORITHM.as_bytes());
     fnv.0
 }
 
@@ -390,7 +395,13 @@ pub fn refine(
     let fingerprint = state_fingerprint(model, grid, settings);
     let mut first = 0;
     let resumed_from = match resume {
-        Some(st) if st.fingerprint == fingerprint && st.params.len() == p.len() => {
+        Some(st)
+            if st.fingerprint == fingerprint
+                && st.params.len() == p.len()
+                && st.best_params.len() == p.len()
+                && st.iteration <= settings.iterations
+                && st.best_iteration <= st.iteration =>
+        {
             p = st.params.clone();
             best = (st.best_chi2, st.best_params.clone(), st.best_iteration);
             predicted = st.predicted;

@@ -185,6 +185,10 @@ impl pinn::RefineObserver for RefineWatch {
         }
     }
     fn on_state(&mut self, st: &pinn::RefineState) {
+        // the folder may not exist yet when training stopped before its first checkpoint
+        if let Some(dir) = self.path.parent() {
+            let _ = std::fs::create_dir_all(dir);
+        }
         if let Err(e) = write_atomic(&self.path, &st.to_bytes()) {
             self.error = Some(format!("cannot write {}: {e}", self.path.display()));
         }

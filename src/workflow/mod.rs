@@ -230,10 +230,13 @@ pub fn invert_settings(
         s.pinn.v_max = v;
     }
     if let Some(r) = a.regulariser {
-        s.pinn.regulariser = match r {
+        // both stages: the refinement's regulariser shapes the model that is reported
+        let kind = match r {
             RegFlag::Smoothness => crate::pinn::Regulariser::Smoothness,
             RegFlag::TotalVariation => crate::pinn::Regulariser::TotalVariation,
         };
+        s.pinn.regulariser = kind;
+        s.refine.regulariser = kind;
     }
     if let Some(t) = a.threads {
         s.pinn.threads = t;
