@@ -100,6 +100,8 @@ pub enum RegFlag {
     Smoothness,
     /// Blocky, layered model (total variation).
     TotalVariation,
+    /// Sharp boundaries between zones (minimum gradient support).
+    MinimumSupport,
 }
 
 /// Arguments of `invert`.

@@ -101,6 +101,10 @@ pub enum Regulariser {
     Smoothness,
     /// Total variation, mean of `sqrt(|L∇v/Δv|² + ε²)` (ε = 1e-3), for blocky ground.
     TotalVariation,
+    /// Minimum gradient support, mean of `g²/(g² + β²)` with `g = |L∇v/Δv|`: counts where
+    /// the velocity changes rather than by how much, so a step costs less than a ramp
+    /// (Portniaguine & Zhdanov 1999, Geophysics 64(3)).
+    MinimumSupport,
 }
 
 /// Every knob of the engine, each with a default that suits a typical spread

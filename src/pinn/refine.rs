@@ -36,7 +36,9 @@ use serde::{Deserialize, Serialize};
 use super::checkpoint::{put_f64, put_u32, put_u64, Fnv, Reader};
 use super::detail::{Detail, DetailBatch};
 use super::net::NetTensors;
-use super::train::{to_f64, velocity_tangent, velocity_value, TrainedModel, VelBatch};
+use super::train::{
+    regulariser_mean, to_f64, velocity_tangent, velocity_value, TrainedModel, VelBatch,
+};
 use super::{PinnError, Regulariser};
 use crate::model::GridSpec;
 
@@ -71,8 +73,8 @@ impl Default for RefineSettings {
         RefineSettings {
             iterations: 10,
             inner_steps: 100,
-            regulariser: Regulariser::TotalVariation,
-            reg_weight: 3.0,
+            regulariser: Regulariser::MinimumSupport,
+            reg_weight: 2.0,
             chi2_target: 1.0,
             detail_features: 32,
             detail_wavelength_m: 8.0,
@@ -217,7 +219,7 @@ const STATE_MAGIC: &[u8; 8] = b"SFREFINE";
 const STATE_VERSION: u32 = 2;
 /// Changes whenever the objective or its sampling changes, so a state written by an
 /// older build is not continued by a newer one (part of the fingerprint).
-const REFINE_ALGORITHM: &str = "detail-fourier-v1; tv on every other node";
+const REFINE_ALGORITHM: &str = "detail-fourier-v1; regulariser on every other node";
 
 impl RefineState {
     /// The outer iteration the refinement continues with.
@@ -558,11 +560,7 @@ impl VelEval<'_> {
         };
         let v = velocity_value(&vel, &self.vb, &m.frame, &self.ad, extra);
         let (_, [vx, vz]) = velocity_tangent(&vel, &self.vb_reg, &m.frame, &self.ad, extra_reg);
-        let g2 = vx.clone().mul(vx).add(vz.clone().mul(vz));
-        let reg = match self.regulariser {
-            Regulariser::Smoothness => g2.sum().mul_scalar(self.inv_n),
-            Regulariser::TotalVariation => g2.add_scalar(1e-6).sqrt().sum().mul_scalar(self.inv_n),
-        };
+        let reg = regulariser_mean(self.regulariser, [vx, vz], self.inv_n);
         let values = to_f64(v.clone().detach());
         let reg_value = to_f64(reg.clone().detach().reshape([1, 1]))
             .first()

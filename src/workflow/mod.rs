@@ -234,6 +234,7 @@ pub fn invert_settings(
         let kind = match r {
             RegFlag::Smoothness => crate::pinn::Regulariser::Smoothness,
             RegFlag::TotalVariation => crate::pinn::Regulariser::TotalVariation,
+            RegFlag::MinimumSupport => crate::pinn::Regulariser::MinimumSupport,
         };
         s.pinn.regulariser = kind;
         s.refine.regulariser = kind;
