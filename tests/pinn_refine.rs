@@ -151,7 +151,7 @@ fn an_interrupted_refinement_continues_to_the_same_result() {
     assert_eq!(st.iteration(), 2);
     let mut again = job(dir.path().join("resumed"), settings.clone());
     again.resume = Some(cp);
-    again.resume_refine = Some(st);
+    again.resume_refine = Some(st.clone());
     let resumed = run(&survey, &again).unwrap();
     let (a, b) = (
         full.report.refinement.as_ref().unwrap(),
@@ -170,16 +170,14 @@ fn an_interrupted_refinement_continues_to_the_same_result() {
     let mut other = settings.clone();
     other.refine.reg_weight *= 2.0;
     let mut stale = job(dir.path().join("stale"), other);
-    stale.resume_refine =
-        Some(RefineState::from_bytes(&std::fs::read(cut.join(REFINE_STATE)).unwrap()).unwrap());
+    stale.resume_refine = Some(st.clone());
     let r = run(&survey, &stale).unwrap();
     assert_eq!(r.report.refinement.as_ref().unwrap().resumed_from, None);
     // nor is a state from beyond the iterations asked for
     let mut fewer = settings.clone();
     fewer.refine.iterations = 1;
     let mut past = job(dir.path().join("past"), fewer);
-    past.resume_refine =
-        Some(RefineState::from_bytes(&std::fs::read(cut.join(REFINE_STATE)).unwrap()).unwrap());
+    past.resume_refine = Some(st);
     let r = run(&survey, &past).unwrap();
     let f = r.report.refinement.as_ref().unwrap();
     assert_eq!((f.resumed_from, f.chi2.len()), (None, 2));

@@ -124,9 +124,15 @@ impl Detail {
         NetTensors::new(&self.shape, params, self.act, self.fast_tanh, device, track)
     }
 
-    /// The logit added to the velocity network's at each point (values only).
-    pub(super) fn logit(&self, domain: &Domain, points: &[[f64; 2]], device: &Device) -> Tensor<2> {
-        let net = self.net(&self.params, device, false);
+    /// The logit added to the velocity network's at each point (values only); `net` is
+    /// [`Detail::net`] of the parameters, built once by the caller for all chunks.
+    pub(super) fn logit(
+        &self,
+        net: &NetTensors,
+        domain: &Domain,
+        points: &[[f64; 2]],
+        device: &Device,
+    ) -> Tensor<2> {
         let b = self.batch(domain, points);
         let x = Tensor::<2>::from_data(TensorData::new(b.x, [b.n, b.d_in]), device);
         net.forward(x)
@@ -135,8 +141,8 @@ impl Detail {
 
 #[cfg(test)]
 mod tests {
+    use super::super::train::to_f64;
     use super::*;
-    use rand::SeedableRng;
 
     fn domain() -> Domain {
         Domain {
@@ -153,8 +159,9 @@ mod tests {
     #[test]
     fn starts_as_zero_so_the_refinement_starts_from_the_pinn_velocity() {
         let d = Detail::new(&domain(), false, 16, 8.0, 8, 2, Activation::Tanh, true, 3);
-        let l = d.logit(&domain(), &POINTS, &Device::flex());
-        let v = l.into_data().try_into_vec::<f32>().unwrap();
+        let device = Device::flex();
+        let net = d.net(&d.params, &device, false);
+        let v = to_f64(d.logit(&net, &domain(), &POINTS, &device));
         assert_eq!(v, vec![0.0; POINTS.len()]);
     }
 
@@ -172,18 +179,10 @@ mod tests {
             Tensor::<2>::from_data(TensorData::new(v.clone(), [b.n, b.d_in]), &device)
         };
         let (_, tangents) = net.forward_tangent(t(&b.x), vec![t(&b.dx), t(&b.dz)]);
-        let value = |pts: &[[f64; 2]]| -> Vec<f64> {
-            d.logit(&dom, pts, &device)
-                .into_data()
-                .try_into_vec::<f32>()
-                .unwrap()
-                .into_iter()
-                .map(f64::from)
-                .collect()
-        };
+        let value = |pts: &[[f64; 2]]| to_f64(d.logit(&net, &dom, pts, &device));
         let h = 1e-2;
         for (dir, tan) in tangents.into_iter().enumerate() {
-            let tan: Vec<f32> = tan.into_data().try_into_vec().unwrap();
+            let tan = to_f64(tan);
             let shift = |s: f64| -> Vec<[f64; 2]> {
                 POINTS
                     .iter()
@@ -197,7 +196,7 @@ mod tests {
             let (up, down) = (value(&shift(h)), value(&shift(-h)));
             for k in 0..POINTS.len() {
                 let fd = (up[k] - down[k]) / (2.0 * h);
-                let err = (f64::from(tan[k]) - fd).abs() / fd.abs().max(1e-2);
+                let err = (tan[k] - fd).abs() / fd.abs().max(1e-2);
                 assert!(
                     err < 1e-3,
                     "direction {dir}, point {k}: tangent {} vs {fd}",

@@ -15,15 +15,20 @@
 //! first arrivals, Fermat's principle makes the ray's node weights the derivatives of
 //! the time with respect to the node slownesses (Aki & Richards, *Quantitative
 //! Seismology*, ch. 12), so `T(s) ≈ T(s_k) + J·(s − s_k)` around the current model.
-//! The inner steps minimise that linearised `χ² + w_r·R(∇v)` over the network weights:
+//! Beside the velocity network the stage trains a Fourier-feature detail network
+//! ([`super::detail`]) whose output is added to the velocity logit, so that features a
+//! few metres across can form. The inner steps minimise that linearised
+//! `χ² + w_r·R(∇v)` over the weights of both networks:
 //! the surrogate `Σ_k (∂χ²/∂v_k)·v_k(θ)` carries the data gradient into burn's
 //! autodiff, and L-BFGS with a Moré–Thuente line search (Nocedal & Wright 2006,
 //! *Numerical Optimization*, §7.2; the `argmin` crate) takes the steps. The linearised
 //! objective is smooth and cheap (no forward solve until the next outer
 //! iteration), which suits a quasi-Newton method far better than the true one, whose
 //! first-arrival times are only piecewise smooth. The outer iterate with the lowest
-//! true `χ²` is kept, and the stage stops once `χ²` reaches its target (the discrepancy principle: fitting the
-//! picks closer than their uncertainty only fits noise).
+//! true `χ²` is kept, and the stage stops once `χ²` reaches its target (the
+//! discrepancy principle: fitting the picks closer than their uncertainty only fits
+//! noise). [`RefineState`] at the start of each outer iteration makes the stage
+//! resumable.
 
 use std::cell::RefCell;
 

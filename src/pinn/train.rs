@@ -172,13 +172,16 @@ impl TrainedModel {
     pub fn velocity(&self, points: &[[f64; 2]]) -> Vec<f64> {
         let device = Device::flex();
         let vel = self.vel_net(&device, false);
+        let detail = self
+            .detail
+            .as_ref()
+            .map(|d| (d, d.net(&d.params, &device, false)));
         let mut out = Vec::with_capacity(points.len());
         for chunk in points.chunks(CHUNK) {
             let vb = self.vel_batch(chunk.iter().copied());
-            let extra = self
-                .detail
+            let extra = detail
                 .as_ref()
-                .map(|d| d.logit(&self.domain, chunk, &device));
+                .map(|(d, net)| d.logit(net, &self.domain, chunk, &device));
             let v = velocity_value(&vel, &vb, &self.frame, &device, extra);
             out.extend(to_f64(v));
         }
