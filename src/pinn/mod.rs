@@ -364,6 +364,11 @@ pub enum PinnError {
         "the checkpoint cannot be read: {0}; it is damaged or from another version, start afresh"
     )]
     CheckpointCorrupt(String),
+    /// A refinement state (`refine.bin`) that cannot be read.
+    #[error(
+        "the refinement state cannot be read: {0}; delete it to redo the refinement from the PINN checkpoint"
+    )]
+    RefineStateCorrupt(String),
     /// The forward solver of the refinement stage refused the model.
     #[error("refining the velocity against fast marching: {0}")]
     Refine(String),

@@ -260,6 +260,13 @@ impl RefineState {
 
     /// Reads bytes written by [`RefineState::to_bytes`].
     pub fn from_bytes(bytes: &[u8]) -> Result<RefineState, PinnError> {
+        Self::read(bytes).map_err(|e| match e {
+            PinnError::CheckpointCorrupt(why) => PinnError::RefineStateCorrupt(why),
+            other => other,
+        })
+    }
+
+    fn read(bytes: &[u8]) -> Result<RefineState, PinnError> {
         let mut r = Reader::new(bytes);
         r.header(STATE_MAGIC, STATE_VERSION, "a slowfield refinement state")?;
         let fingerprint = r.u64()?;

@@ -177,12 +177,8 @@ pub fn invert_settings(
         if rs_path.exists() {
             let bytes = std::fs::read(&rs_path)
                 .with_context(|| format!("cannot read {}", rs_path.display()))?;
-            let rs = crate::pinn::RefineState::from_bytes(&bytes).map_err(|e| {
-                anyhow::anyhow!(
-                    "{}: {e}; delete it to redo the refinement from the PINN checkpoint",
-                    rs_path.display()
-                )
-            })?;
+            let rs = crate::pinn::RefineState::from_bytes(&bytes)
+                .map_err(|e| anyhow::anyhow!("{}: {e}", rs_path.display()))?;
             resume_refine = Some(rs);
         }
         let cp_path = dir.join(invert::CHECKPOINT);
@@ -248,9 +244,20 @@ pub fn invert_settings(
 /// `slowfield invert`.
 pub fn invert(a: &InvertArgs) -> anyhow::Result<ExitCode> {
     let (settings, resume, resume_refine) = invert_settings(a)?;
-    settings
-        .validate()
-        .map_err(|e| anyhow::anyhow!("invalid setting: {e}"))?;
+    settings.validate().map_err(|e| {
+        // the value came from a flag, the --config file or the resumed run's settings
+        let file = a
+            .config
+            .clone()
+            .or_else(|| a.resume.as_ref().map(|d| d.join("settings.toml")));
+        match file {
+            Some(f) => anyhow::anyhow!(
+                "invalid setting: {e} (settings from {} and the command line)",
+                f.display()
+            ),
+            None => anyhow::anyhow!("invalid setting: {e}"),
+        }
+    })?;
     let survey = match load_survey(&a.picks, a.surface.as_deref()) {
         Ok(s) => s,
         Err(e) => {
