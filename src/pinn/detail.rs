@@ -11,10 +11,11 @@
 
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-use rand_distr::{Distribution, Normal};
+use rand_distr::{Distribution, StandardNormal};
 
 use super::net::{Activation, MlpShape, NetTensors};
-use super::Domain;
+use super::refine::RefineSettings;
+use super::{Domain, PinnSettings};
 use burn::prelude::*;
 
 /// Random stream of the frequencies (apart from the weights' streams).
@@ -42,43 +43,39 @@ pub(super) struct DetailBatch {
 }
 
 impl Detail {
-    /// `features` frequency pairs drawn from a normal distribution of standard
-    /// deviation `1/wavelength_m` (in 1-D only depth frequencies), a `width × depth`
-    /// network after them, its last layer zero.
-    #[allow(clippy::too_many_arguments)]
-    pub(super) fn new(
-        domain: &Domain,
-        one_d: bool,
-        features: usize,
-        wavelength_m: f64,
-        width: usize,
-        depth: usize,
-        act: Activation,
-        fast_tanh: bool,
-        seed: u64,
-    ) -> Detail {
-        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    /// `detail_features` frequency pairs drawn from a normal distribution of standard
+    /// deviation `1/detail_wavelength_m` (in 1-D only depth frequencies), a
+    /// `detail_width × detail_depth` network after them with the PINN's activation, its
+    /// last layer zero; seeded by the PINN's seed.
+    pub(super) fn new(domain: &Domain, refine: &RefineSettings, pinn: &PinnSettings) -> Detail {
+        let mut rng = ChaCha8Rng::seed_from_u64(pinn.seed);
         rng.set_stream(FREQ_STREAM);
-        let normal = Normal::new(0.0, 1.0 / wavelength_m).unwrap_or(Normal::new(0.0, 1.0).unwrap());
-        let freqs = (0..features)
+        let scale = 1.0 / refine.detail_wavelength_m;
+        let one_d = pinn.dim == 1;
+        let freqs = (0..refine.detail_features)
             .map(|_| {
-                let fx = normal.sample(&mut rng);
-                let fz = normal.sample(&mut rng);
+                let fx: f64 = StandardNormal.sample(&mut rng);
+                let fz: f64 = StandardNormal.sample(&mut rng);
                 if one_d {
-                    [0.0, fz]
+                    [0.0, fz * scale]
                 } else {
-                    [fx, fz]
+                    [fx * scale, fz * scale]
                 }
             })
             .collect();
-        let shape = MlpShape::new(2 * features, width, depth, 1);
+        let shape = MlpShape::new(
+            2 * refine.detail_features,
+            refine.detail_width,
+            refine.detail_depth,
+            1,
+        );
         let params = shape.init(&mut rng, true);
         Detail {
             freqs,
             x_ref: 0.5 * (domain.x_min + domain.x_max),
             shape,
-            act,
-            fast_tanh,
+            act: pinn.activation,
+            fast_tanh: pinn.fast_tanh,
             params,
         }
     }
@@ -153,12 +150,32 @@ mod tests {
         }
     }
 
+    /// 16 frequency pairs of scale 8 m into a 2×8 network.
+    fn refine() -> RefineSettings {
+        RefineSettings {
+            detail_features: 16,
+            detail_wavelength_m: 8.0,
+            detail_width: 8,
+            detail_depth: 2,
+            ..RefineSettings::default()
+        }
+    }
+
+    /// tanh (fast or the C library's), seed 3.
+    fn pinn(fast_tanh: bool) -> PinnSettings {
+        PinnSettings {
+            fast_tanh,
+            seed: 3,
+            ..PinnSettings::default()
+        }
+    }
+
     /// Points away from the surface's kink at x = 30 m, where depth has no x-derivative.
     const POINTS: [[f64; 2]; 3] = [[10.3, -2.0], [41.7, -5.5], [55.0, -0.4]];
 
     #[test]
     fn starts_as_zero_so_the_refinement_starts_from_the_pinn_velocity() {
-        let d = Detail::new(&domain(), false, 16, 8.0, 8, 2, Activation::Tanh, true, 3);
+        let d = Detail::new(&domain(), &refine(), &pinn(true));
         let device = Device::flex();
         let net = d.net(&d.params, &device, false);
         let v = to_f64(d.logit(&net, &domain(), &POINTS, &device));
@@ -170,7 +187,7 @@ mod tests {
     #[test]
     fn tangents_match_central_differences() {
         let dom = domain();
-        let mut d = Detail::new(&dom, false, 16, 8.0, 8, 2, Activation::Tanh, false, 3);
+        let mut d = Detail::new(&dom, &refine(), &pinn(false));
         d.params = d.shape.init(&mut ChaCha8Rng::seed_from_u64(11), false);
         let device = Device::flex();
         let net = d.net(&d.params, &device, false);

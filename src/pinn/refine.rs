@@ -373,17 +373,7 @@ pub fn refine(
         }
     }
     let detail = (settings.detail_features > 0).then(|| {
-        let d = Detail::new(
-            &model.domain,
-            model.settings.dim == 1,
-            settings.detail_features,
-            settings.detail_wavelength_m,
-            settings.detail_width,
-            settings.detail_depth,
-            model.settings.activation,
-            model.settings.fast_tanh,
-            model.settings.seed,
-        );
+        let d = Detail::new(&model.domain, settings, &model.settings);
         let b = d.batch(&model.domain, &points);
         let br = d.batch(&model.domain, &lattice);
         (d, b, br)
