@@ -1,36 +1,43 @@
 //! Quality of the default PINN inversion on synthetic sites whose truth is known.
 //!
 //! Each case builds a site of our own (a velocity function and a line geometry), makes
-//! picks by fast marching through the true model on a 0.25 m grid with Gaussian noise
-//! (σ = 0.5 ms, seeded), runs exactly what `slowfield invert` runs
-//! (`slowfield::workflow::invert::run` with the default settings, outputs written to
-//! `target/pinn_quality/<case>/`), and compares the result with the truth:
+//! picks by fast marching through the true model on a 0.125 m grid (sampled in
+//! slowness) with seeded Gaussian noise, runs the inversion layer with the settings of
+//! `slowfield invert` (`slowfield::inversion::run`; the run folder is then written to
+//! `target/pinn_quality/<case>/` for a look), and compares the result with the truth:
 //!
-//! * FMM χ²: the fast-marching check through the PINN velocity (the one that counts);
-//! * network χ², eikonal RMS: the networks' own figures;
-//! * median |v error| %: over the model nodes crossed by at least one ray of the check;
-//! * refractor: mean |depth error| of the 1500 m/s level where the rays reach it;
+//! * judge χ²: fast marching through the final velocity on half the inversion's cell
+//!   (the misfit that counts); inversion-grid χ²: the same on the inversion's own grid;
+//!   network χ²: the travel-time network's own times;
+//! * median / p90 |v error| %: over the model nodes within a cell of a ray
+//!   (`compare::against_truth`);
+//! * depth error: mean |depth error| of the `interface_mps` level over the columns
+//!   where both models reach it (the node reached covered by rays);
 //! * lens: mean inverted velocity inside the lens over that of the same depth 10 m to
-//!   either side (the true ratio beside it).
+//!   either side (the true ratio beside it);
+//! * the refinement's true χ² at every outer iteration, `*` where the step was
+//!   accepted (a step whose χ² rose is shortened).
 //!
 //! Run: `cargo run --release --example pinn_quality [case …]` (cases: flat, lens, topo,
-//! demo; all by default). `PINN_CONFIG=run.toml` overrides the settings (same format
-//! as `slowfield invert --config`).
+//! demo, sparse; all by default). `PINN_CONFIG=run.toml` overrides the settings (same
+//! format as `slowfield invert --config`).
 
 use std::path::{Path, PathBuf};
+use std::time::Instant;
 
-use rand::SeedableRng;
-use rand_chacha::ChaCha8Rng;
-use rand_distr::{Distribution, Normal};
-use slowfield::eikonal::FmmOptions;
+use slowfield::compare::against_truth;
+use slowfield::inversion::{self, Event, History, Inversion, Problem, Resume};
 use slowfield::model::{GridSpec, VelocityGrid};
 use slowfield::pinn::Checkpoint;
+use slowfield::report::InvertReport;
 use slowfield::settings::RunSettings;
 use slowfield::survey::{Pick, Point, Survey};
-use slowfield::workflow::invert::{self, InvertJob};
 
-/// Noise of the synthetic picks, s.
+/// Noise of the synthetic picks, s (the sparse site grows it with offset).
 const SIGMA: f64 = 0.5e-3;
+/// Cell of the fast marching that makes the synthetic picks: a quarter of the default
+/// inversion cell, half the judge's, so neither shares the data's discretisation.
+const DATA_CELL: f64 = 0.125;
 
 /// A soft lens: centre x, centre depth, half-width, half-height, velocity.
 #[derive(Clone, Copy)]
@@ -59,6 +66,12 @@ struct Case {
     truth_grid: Option<VelocityGrid>,
     /// picks file instead of synthetic picks (the demo)
     picks_file: Option<PathBuf>,
+    /// σ of a synthetic pick at this offset, s
+    sigma: fn(f64) -> f64,
+}
+
+fn flat_sigma(_: f64) -> f64 {
+    SIGMA
 }
 
 fn line(n: usize, spacing: f64, shot_every: usize) -> (Vec<f64>, Vec<f64>) {
@@ -86,6 +99,7 @@ fn cases() -> Vec<Case> {
         lens: None,
         truth_grid: None,
         picks_file: None,
+        sigma: flat_sigma,
     });
     // gradient with a soft lens, gentle slope
     let lens = Lens {
@@ -110,6 +124,7 @@ fn cases() -> Vec<Case> {
         lens: Some(lens),
         truth_grid: None,
         picks_file: None,
+        sigma: flat_sigma,
     });
     // topography over a refractor with a channel
     let (r, s) = line(56, 2.0, 4);
@@ -130,6 +145,7 @@ fn cases() -> Vec<Case> {
         lens: None,
         truth_grid: None,
         picks_file: None,
+        sigma: flat_sigma,
     });
     // the shipped demo site (experiments/demo_site.rs)
     let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-picks");
@@ -148,11 +164,35 @@ fn cases() -> Vec<Case> {
         }),
         truth_grid: truth,
         picks_file: Some(dir.join("picks.csv")),
+        sigma: flat_sigma,
+    });
+    // sparse: 24 receivers 5 m apart, 5 shots, soil over a rock valley, σ growing with
+    // offset (weaker, later first breaks far from the shot)
+    let receivers: Vec<f64> = (0..24).map(|k| 5.0 * k as f64).collect();
+    let valley = |x: f64| 6.0 + 8.0 * (-((x - 60.0) / 14.0).powi(2)).exp();
+    out.push(Case {
+        name: "sparse",
+        ground: Box::new(|x| 120.0 + 0.02 * x),
+        velocity: Box::new(move |x, d| {
+            let h = valley(x);
+            if d < h {
+                500.0 + 30.0 * d
+            } else {
+                (2400.0 + 40.0 * (d - h)).min(3500.0)
+            }
+        }),
+        receivers,
+        shots: vec![-10.0, 27.5, 57.5, 87.5, 125.0],
+        lens: None,
+        truth_grid: None,
+        picks_file: None,
+        sigma: |offset| 0.3e-3 + 0.01e-3 * offset,
     });
     out
 }
 
-/// Synthetic picks of a case: fast marching through the true model, plus noise.
+/// Synthetic picks of a case: fast marching through the true model on a fine cell
+/// (sampled in slowness), plus noise.
 fn synthetic_survey(c: &Case, seed: u64) -> Survey {
     let mut picks = Vec::new();
     for (k, &s) in c.shots.iter().enumerate() {
@@ -170,126 +210,106 @@ fn synthetic_survey(c: &Case, seed: u64) -> Survey {
             });
         }
     }
-    let geometry = Survey::from_picks(picks.clone()).expect("geometry");
-    let grid = true_grid(c, &geometry, 0.25);
-    let times =
-        slowfield::verify::predict(&geometry, &grid, &FmmOptions::default()).expect("true times");
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let noise = Normal::new(0.0, SIGMA).expect("sigma");
-    for (p, t) in picks.iter_mut().zip(times) {
-        p.time = t + noise.sample(&mut rng);
-    }
-    Survey::from_picks(picks).expect("picks")
+    let geometry = Survey::from_picks(picks).expect("geometry");
+    let truth = true_grid(c, &geometry, DATA_CELL);
+    let sigma = c.sigma;
+    slowfield::synthetic::picks_with(&geometry, &truth, DATA_CELL, |p| sigma(p.offset()), seed)
+        .expect("true times")
 }
 
 /// The true model of a synthetic case on a grid of `cell` over the survey, air above
 /// the survey's surface.
 fn true_grid(c: &Case, survey: &Survey, cell: f64) -> VelocityGrid {
+    if let Some(g) = &c.truth_grid {
+        return g.clone();
+    }
     let (x0, x1) = survey.x_range();
     let top = survey.surface.highest();
-    let z0 = top - 45.0;
-    let nx = ((x1 - x0) / cell).round() as usize + 1;
-    let nz = ((top - z0) / cell).ceil() as usize + 1;
-    let spec = GridSpec {
-        x0,
-        z0,
-        dx: (x1 - x0) / (nx - 1) as f64,
-        dz: cell,
-        nx,
-        nz,
-    };
+    let spec = GridSpec::covering(x0, x1, top - 45.0, top, cell);
     VelocityGrid::from_fn(spec, Some(&survey.surface), |x, z| {
         (c.velocity)(x, survey.surface.elevation(x) - z)
     })
-}
-
-/// True velocity at (x, z).
-fn truth_at(c: &Case, survey: &Survey, x: f64, z: f64) -> Option<f64> {
-    match &c.truth_grid {
-        Some(g) => g.sample(x, z),
-        None => Some((c.velocity)(x, survey.surface.elevation(x) - z)),
-    }
 }
 
 struct Row {
     case: String,
     steps: usize,
     seconds: f64,
-    fmm_chi2: f64,
-    fmm_rms: f64,
+    judge_chi2: f64,
+    grid_chi2: f64,
     net_chi2: f64,
-    eik: f64,
-    median_err: f64,
+    median_pct: f64,
+    p90_pct: f64,
     refractor: Option<f64>,
     lens: Option<(f64, f64)>,
+    /// the refinement's true χ² per outer iteration, '*' on the accepted ones
+    refine: String,
+}
+
+/// Keeps the last training checkpoint (for `PINN_RESUME`).
+#[derive(Default)]
+struct Keep(Option<Checkpoint>);
+
+impl inversion::Observer for Keep {
+    fn on(&mut self, e: Event<'_>) {
+        if let Event::Checkpoint(c) = e {
+            self.0 = Some(c.clone());
+        }
+    }
 }
 
 fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row> {
+    let t0 = Instant::now();
     let survey = match &c.picks_file {
         Some(p) => slowfield::survey::read_picks(p).map_err(|e| anyhow::anyhow!("{e}"))?,
         None => synthetic_survey(c, 7),
     };
     // PINN_RESUME=DIR continues from DIR/<case>/checkpoint.bin of an earlier run with
     // the same PINN settings (to study the refinement stage without retraining)
-    let resume = match std::env::var_os("PINN_RESUME") {
+    let checkpoint = match std::env::var_os("PINN_RESUME") {
         Some(d) => {
             let bytes = std::fs::read(Path::new(&d).join(c.name).join("checkpoint.bin"))?;
             Some(Checkpoint::from_bytes(&bytes).map_err(|e| anyhow::anyhow!("{e}"))?)
         }
         None => None,
     };
-    let job = InvertJob {
-        picks_path: PathBuf::from(format!("synthetic:{}", c.name)),
-        out: out.to_path_buf(),
-        settings: settings.clone(),
-        resume,
-        resume_refine: None,
-        progress: false,
-    };
-    let invert::InvertOutcome {
-        report,
+    let problem = Problem::new(survey.clone(), settings);
+    let mut keep = Keep::default();
+    let inv: Inversion = inversion::run(
+        &problem,
+        settings,
+        Resume {
+            checkpoint,
+            outer: None,
+        },
+        &mut keep,
+    )?;
+    let seconds = t0.elapsed().as_secs_f64();
+    // the run folder, to look at (the experiment's own output, not the engine's)
+    std::fs::create_dir_all(out)?;
+    let report = InvertReport::new(
+        &format!("synthetic:{}", c.name),
+        &problem,
+        settings,
+        &inv,
+        seconds,
+    );
+    slowfield::report::write_run(out, &problem, &inv, &report)?;
+    if let Some(cp) = &keep.0 {
+        std::fs::write(out.join("checkpoint.bin"), cp.to_bytes())?;
+    }
+    let model = &inv.model;
+    let covered = &inv.coverage.covered;
+    let truth = true_grid(c, &survey, DATA_CELL);
+    let err = against_truth(
         model,
+        &truth,
         covered,
-    } = invert::run(&survey, &job)?;
+        &survey.surface,
+        settings.interface_mps,
+    );
     let s = &model.spec;
-    let mut errs = Vec::new();
-    for j in 0..s.nz {
-        for i in 0..s.nx {
-            let k = s.idx(i, j);
-            if !covered[k] || model.is_air(k) {
-                continue;
-            }
-            if let Some(t) = truth_at(c, &survey, s.x(i), s.z(j)) {
-                if t.is_finite() {
-                    errs.push(((model.v[k] - t) / t).abs());
-                }
-            }
-        }
-    }
-    errs.sort_by(f64::total_cmp);
-    let median_err = errs.get(errs.len() / 2).copied().unwrap_or(f64::NAN);
-    // refractor: the true depth of the same velocity level in each reported column
-    let level = settings.interface_mps;
-    let mut dev = Vec::new();
-    for p in &report.interface.points {
-        let (x, d) = (p[0], p[1]);
-        let e = survey.surface.elevation(x);
-        let mut true_d = None;
-        let mut q = 0.0;
-        while q < 40.0 {
-            if let Some(v) = truth_at(c, &survey, x, e - q) {
-                if v >= level {
-                    true_d = Some(q);
-                    break;
-                }
-            }
-            q += 0.05;
-        }
-        if let Some(t) = true_d {
-            dev.push((d - t).abs());
-        }
-    }
-    let refractor = (!dev.is_empty()).then(|| dev.iter().sum::<f64>() / dev.len() as f64);
+    let truth_at = |x: f64, z: f64| truth.sample(x, z).unwrap_or(f64::NAN);
     // lens contrast, inverted and true
     let lens = c.lens.map(|l| {
         let (mut inside, mut beside, mut t_in, mut t_out) =
@@ -302,7 +322,7 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
                 }
                 let (x, z) = (s.x(i), s.z(j));
                 let d = survey.surface.elevation(x) - z;
-                let t = truth_at(c, &survey, x, z).unwrap_or(f64::NAN);
+                let t = truth_at(x, z);
                 if l.contains(x, d) {
                     inside.push(model.v[k]);
                     t_in.push(t);
@@ -315,17 +335,33 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len().max(1) as f64;
         (mean(&inside) / mean(&beside), mean(&t_in) / mean(&t_out))
     });
+    let refine = inv
+        .stages
+        .iter()
+        .find_map(|st| match &st.history {
+            History::Linearised { iterations, .. } => Some(
+                iterations
+                    .iter()
+                    .map(|l| format!("{:.2}{}", l.chi2, if l.accepted { "*" } else { "" }))
+                    .collect::<Vec<_>>()
+                    .join(" "),
+            ),
+            History::Training { .. } => None,
+        })
+        .unwrap_or_default();
+    let slowfield::inversion::MethodDetail::Pinn(p) = &inv.detail;
     Ok(Row {
         case: c.name.to_string(),
-        steps: report.steps,
-        seconds: report.run_seconds,
-        fmm_chi2: report.fmm_misfit.chi2,
-        fmm_rms: report.fmm_misfit.rms_ms,
-        net_chi2: report.network_misfit.chi2,
-        eik: report.eikonal_rms,
-        median_err,
-        refractor,
+        steps: p.steps,
+        seconds,
+        judge_chi2: inv.judge.misfit.chi2,
+        grid_chi2: inv.judge.inversion_grid.chi2,
+        net_chi2: inv.own_fit.as_ref().map_or(f64::NAN, |o| o.misfit.chi2),
+        median_pct: err.median_pct,
+        p90_pct: err.p90_pct,
+        refractor: err.interface_mean_abs_m,
         lens,
+        refine,
     })
 }
 
@@ -336,7 +372,7 @@ fn main() -> anyhow::Result<()> {
         None => RunSettings::default(),
     };
     let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("target/pinn_quality");
-    println!("| case | steps | s | FMM χ² | FMM RMS ms | network χ² | eikonal RMS | median abs v err % (covered) | refractor depth err m | lens v/beside (true) |");
+    println!("| case | steps | s | judge χ² (half cell) | inversion-grid χ² | network χ² | median / p90 v err % (covered) | depth err of {:.0} m/s, m | lens v/beside (true) | refinement χ² per iteration (* accepted) |", settings.interface_mps);
     println!("|---|---|---|---|---|---|---|---|---|---|");
     for c in cases() {
         if !wanted.is_empty() && !wanted.iter().any(|w| w == c.name) {
@@ -348,18 +384,19 @@ fn main() -> anyhow::Result<()> {
         }
         let r = run_case(&c, &settings, &root.join(c.name))?;
         println!(
-            "| {} | {} | {:.1} | {:.2} | {:.2} | {:.2} | {:.4} | {:.1} | {} | {} |",
+            "| {} | {} | {:.1} | {:.2} | {:.2} | {:.2} | {:.1} / {:.1} | {} | {} | {} |",
             r.case,
             r.steps,
             r.seconds,
-            r.fmm_chi2,
-            r.fmm_rms,
+            r.judge_chi2,
+            r.grid_chi2,
             r.net_chi2,
-            r.eik,
-            100.0 * r.median_err,
+            r.median_pct,
+            r.p90_pct,
             r.refractor.map_or("–".into(), |d| format!("{d:.2}")),
             r.lens
                 .map_or("–".into(), |(a, b)| format!("{a:.2} ({b:.2})")),
+            r.refine,
         );
     }
     Ok(())

@@ -1,11 +1,13 @@
-//! Command-line interface: argument definitions and dispatch to the workflows.
+//! Command-line interface: the argument definitions, turned into the jobs' plain
+//! requests. Nothing outside this file (and `main.rs`) knows clap.
 
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Args, Parser, Subcommand};
 
-use crate::workflow;
+use crate::jobs::{self, CheckRequest, DemoRequest, ForwardRequest, InvertRequest, Overrides};
+use crate::settings::{self, Regulariser};
 
 /// Seismic first-arrival picks to a velocity section of the shallow ground.
 #[derive(Debug, Parser)]
@@ -86,9 +88,9 @@ pub struct ForwardArgs {
     pub first_order: bool,
 }
 
-/// Inversion method.
+/// Inversion method (flag form).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum Method {
+pub enum MethodFlag {
     /// Physics-informed neural network (mesh-free).
     Pinn,
 }
@@ -112,9 +114,9 @@ pub struct InvertArgs {
     /// Output folder (velocity.csv, fit.csv, figures, report.json, report.html, settings.toml).
     #[arg(short, long)]
     pub output: PathBuf,
-    /// Inversion method.
-    #[arg(long, value_enum, default_value_t = Method::Pinn)]
-    pub method: Method,
+    /// Inversion method (default: the settings file's, else pinn).
+    #[arg(long, value_enum)]
+    pub method: Option<MethodFlag>,
     /// 2: velocity varies along the line and with depth; 1: with depth only.
     #[arg(long, value_parser = clap::value_parser!(u8).range(1..=2))]
     pub dim: Option<u8>,
@@ -168,9 +170,54 @@ pub struct DemoArgs {
 /// Runs a parsed command line; the exit code says whether the input was usable.
 pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
-        Command::Check(a) => workflow::check(&a),
-        Command::Forward(a) => workflow::forward(&a),
-        Command::Invert(a) => workflow::invert(&a),
-        Command::Demo(a) => workflow::demo(&a),
+        Command::Check(a) => jobs::check(&CheckRequest {
+            picks: a.picks,
+            surface: a.surface,
+            json: a.json,
+            reciprocal_ms: a.reciprocal_ms,
+            reciprocal_percent: a.reciprocal_percent,
+            position_tol: a.position_tol,
+            outlier_ms: a.outlier_ms,
+        }),
+        Command::Forward(a) => jobs::forward(&ForwardRequest {
+            model: a.model,
+            picks: a.picks,
+            surface: a.surface,
+            output: a.output,
+            noise_ms: a.noise_ms,
+            seed: a.seed,
+            cell: a.cell,
+            residuals: a.residuals,
+            first_order: a.first_order,
+        }),
+        Command::Invert(a) => jobs::invert(&InvertRequest {
+            picks: a.picks,
+            output: a.output,
+            surface: a.surface,
+            config: a.config,
+            resume: a.resume,
+            overrides: Overrides {
+                method: a.method.map(|m| match m {
+                    MethodFlag::Pinn => settings::Method::Pinn,
+                }),
+                dim: a.dim,
+                steps: a.steps,
+                refine: a.refine,
+                seed: a.seed,
+                sigma_ms: a.sigma_ms,
+                v_min: a.v_min,
+                v_max: a.v_max,
+                regulariser: a.regulariser.map(|r| match r {
+                    RegFlag::Smoothness => Regulariser::Smoothness,
+                    RegFlag::TotalVariation => Regulariser::TotalVariation,
+                    RegFlag::MinimumSupport => Regulariser::MinimumSupport,
+                }),
+                threads: a.threads,
+            },
+        }),
+        Command::Demo(a) => jobs::demo(&DemoRequest {
+            output: a.output,
+            steps: a.steps,
+        }),
     }
 }

@@ -23,47 +23,6 @@ pub struct TruthError {
     pub interface_max_abs_m: Option<f64>,
 }
 
-fn percentile(v: &mut [f64], q: f64) -> f64 {
-    if v.is_empty() {
-        return f64::NAN;
-    }
-    v.sort_by(f64::total_cmp);
-    let k = ((v.len() - 1) as f64 * q).round() as usize;
-    v[k]
-}
-
-/// Depth below `surface` where a column of `m` first reaches `v` going down, m.
-fn depth_to(
-    m: &VelocityGrid,
-    surface: &Surface,
-    i: usize,
-    v: f64,
-    covered: Option<&[bool]>,
-) -> Option<f64> {
-    let s = &m.spec;
-    let x = s.x(i);
-    let mut above: Option<(f64, f64)> = None;
-    for j in (0..s.nz).rev() {
-        let k = s.idx(i, j);
-        let vel = m.v[k];
-        if vel.is_nan() {
-            continue;
-        }
-        if covered.is_some_and(|c| !c[k]) {
-            return None;
-        }
-        if vel >= v {
-            let z = match above {
-                Some((za, va)) if va < v => za - (v - va) / (vel - va) * (za - s.z(j)),
-                _ => s.z(j),
-            };
-            return Some(surface.elevation(x) - z);
-        }
-        above = Some((s.z(j), vel));
-    }
-    None
-}
-
 /// Compares `est` with `truth` (resampled onto `est`'s grid) over the covered nodes.
 pub fn against_truth(
     est: &VelocityGrid,
@@ -78,12 +37,12 @@ pub fn against_truth(
         .map(|k| ((est.v[k] - t.v[k]) / t.v[k]).abs() * 100.0)
         .collect();
     let nodes = errs.len();
-    let median = percentile(&mut errs, 0.5);
-    let p90 = percentile(&mut errs, 0.9);
+    let median = crate::stats::median(&mut errs).unwrap_or(f64::NAN);
+    let p90 = crate::stats::quantile(&mut errs, 0.9).unwrap_or(f64::NAN);
     let diffs: Vec<f64> = (0..est.spec.nx)
         .filter_map(|i| {
-            let a = depth_to(est, surface, i, interface_mps, Some(covered))?;
-            let b = depth_to(&t, surface, i, interface_mps, None)?;
+            let a = est.depth_to(i, interface_mps, surface, Some(covered))?;
+            let b = t.depth_to(i, interface_mps, surface, None)?;
             Some((a - b).abs())
         })
         .collect();

@@ -195,20 +195,7 @@ fn theil_sen(pts: &[(f64, f64)]) -> Option<f64> {
             }
         }
     }
-    median(&mut slopes)
-}
-
-fn median(v: &mut [f64]) -> Option<f64> {
-    if v.is_empty() {
-        return None;
-    }
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    Some(if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        0.5 * (v[n / 2 - 1] + v[n / 2])
-    })
+    crate::stats::median(&mut slopes)
 }
 
 /// (|offset|, time) of one side of a shot, sorted by offset, with the pick index.
@@ -380,7 +367,7 @@ fn outliers(survey: &Survey, st: &QcSettings) -> Vec<Outlier> {
     let term: std::collections::HashMap<i64, f64> = per_rec
         .into_iter()
         .filter(|(_, v)| v.len() >= 3)
-        .map(|(k, mut v)| (k, median(&mut v).unwrap_or(0.0)))
+        .map(|(k, mut v)| (k, crate::stats::median(&mut v).unwrap_or(0.0)))
         .collect();
     let mut out = Vec::new();
     for mut pts in sides {
@@ -398,7 +385,7 @@ fn outliers(survey: &Survey, st: &QcSettings) -> Vec<Outlier> {
                 })
                 .collect();
             let mut abs: Vec<f64> = res.iter().map(|r| r.1.abs()).collect();
-            let mad = median(&mut abs).unwrap_or(0.0);
+            let mad = crate::stats::median(&mut abs).unwrap_or(0.0);
             let thr = st.outlier_floor_s.max(st.outlier_sigmas * 1.4826 * mad);
             // the two ends are extrapolated across a possible crossover kink: twice the threshold
             let limit = |k: usize| {

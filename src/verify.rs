@@ -1,15 +1,17 @@
 //! The judge of every model: fast-marching times for a survey's geometry on a solver
 //! grid, and the misfit of those times to the picks.
 //!
-//! A model is sampled onto the solver grid bilinearly in velocity; the survey's ground
-//! surface decides which solver nodes are air. Where the surface lies above the model's
-//! top node of a column (a coarse model under a fine surface), the velocity of the
-//! model's top ground is carried up to the surface.
+//! A model is sampled onto the solver grid bilinearly in *slowness* (travel time is
+//! linear in slowness; averaging velocities across a sharp contrast makes times early);
+//! the survey's ground surface decides which solver nodes are air. Where the surface
+//! lies above the model's top node of a column (a coarse model under a fine surface),
+//! the velocity of the model's top ground is carried up to the surface.
 
 use rayon::prelude::*;
 use serde::Serialize;
 
 use crate::eikonal::{self, EikonalError, FmmOptions};
+use crate::linearised::{ForwardModel, Jacobian, Linearisation};
 use crate::model::{GridSpec, VelocityGrid};
 use crate::survey::{Surface, Survey};
 
@@ -87,16 +89,8 @@ pub fn solver_grid(
         return Err(VerifyError::BadCell(cell));
     }
     let top = surface.highest().max(m.z_max());
-    let nx = ((m.x_max() - m.x0) / cell).round() as usize + 1;
-    let nz = ((top - m.z0) / cell).ceil() as usize + 1;
-    let spec = GridSpec {
-        x0: m.x0,
-        z0: m.z0,
-        dx: (m.x_max() - m.x0) / (nx - 1) as f64,
-        dz: cell,
-        nx,
-        nz,
-    };
+    let spec = GridSpec::covering(m.x0, m.x_max(), m.z0, top, cell);
+    let nx = spec.nx;
     let model_top = model.surface();
     // per column: x, the ground's elevation, the model's top
     let cols: Vec<(f64, f64, f64)> = (0..nx)
@@ -112,8 +106,8 @@ pub fn solver_grid(
             // nodes above the ground stay air
             if z <= ground + 1e-9 {
                 *out = model
-                    .sample(x, z.min(zt))
-                    .or_else(|| model.sample(x, zt - 1e-9 * m.dz))
+                    .sample_in_slowness(x, z.min(zt))
+                    .or_else(|| model.sample_in_slowness(x, zt - 1e-9 * m.dz))
                     .unwrap_or(f64::NAN);
             }
         }
@@ -191,16 +185,16 @@ pub struct Misfit {
     pub chi2: f64,
 }
 
-/// Misfit of `predicted` to the picks; `sigma` is the default for picks without one, s.
-pub fn misfit(survey: &Survey, predicted: &[f64], sigma: f64) -> Misfit {
+/// Misfit of `predicted` to the picks, each with its σ in `sigma_s` (s).
+pub fn misfit(survey: &Survey, predicted: &[f64], sigma_s: &[f64]) -> Misfit {
     let n = survey.picks.len().max(1) as f64;
     let (mut ss, mut sum, mut max, mut chi) = (0.0, 0.0, 0.0f64, 0.0);
-    for (p, &t) in survey.picks.iter().zip(predicted) {
+    for ((p, &t), &sigma) in survey.picks.iter().zip(predicted).zip(sigma_s) {
         let r = p.time - t;
         ss += r * r;
         sum += r;
         max = max.max(r.abs());
-        chi += (r / p.sigma_or(sigma)).powi(2);
+        chi += (r / sigma).powi(2);
     }
     Misfit {
         picks: survey.picks.len(),
@@ -212,7 +206,7 @@ pub fn misfit(survey: &Survey, predicted: &[f64], sigma: f64) -> Misfit {
 }
 
 /// Fast-marching residuals and rays of velocity models on one grid: the forward
-/// solver of the PINN's refinement stage ([`crate::pinn::refine`]).
+/// model of every method that fits a gridded velocity ([`crate::linearised`]).
 ///
 /// `∂T_i/∂s_k` is the weight of node `k` on the steepest-descent ray of pick `i`
 /// ([`eikonal::Ray::weights`]). Picks whose ray cannot be traced keep their residual
@@ -222,30 +216,29 @@ pub struct FmmMisfit<'a> {
     sources: Vec<crate::survey::Point>,
     receivers: Vec<Vec<crate::survey::Point>>,
     spec: GridSpec,
-    sigma: f64,
+    sigma_s: Vec<f64>,
     opts: FmmOptions,
     ray_opts: eikonal::RayOptions,
 }
 
 impl<'a> FmmMisfit<'a> {
-    /// Misfit of models on `spec` to the picks of `survey`; `sigma` (s) is the default
-    /// for picks without their own.
-    pub fn new(survey: &'a Survey, spec: GridSpec, sigma: f64) -> FmmMisfit<'a> {
+    /// Misfit of models on `spec` to the picks of `survey`, each with its σ (s).
+    pub fn new(survey: &'a Survey, spec: GridSpec, sigma_s: Vec<f64>) -> FmmMisfit<'a> {
         let (sources, receivers) = survey.shot_geometry();
         FmmMisfit {
             survey,
             sources,
             receivers,
             spec,
-            sigma,
+            sigma_s,
             opts: FmmOptions::default(),
             ray_opts: eikonal::RayOptions::default(),
         }
     }
 
-    /// Residuals and rays of every pick through `velocity` (m/s at the nodes of the
-    /// grid, NaN = air), in file order.
-    pub fn linearise(&self, velocity: &[f64]) -> Result<crate::pinn::Linearisation, VerifyError> {
+    /// Residuals (observed − predicted) and rays of every pick through `velocity` (m/s
+    /// at the nodes of the grid, NaN = air), in file order.
+    pub fn linearise(&self, velocity: &[f64]) -> Result<Linearisation, VerifyError> {
         let slowness: Vec<f64> = velocity.iter().map(|&v| 1.0 / v).collect();
         let ray_opts = self.ray_opts;
         let per = eikonal::map_shots(
@@ -261,34 +254,30 @@ impl<'a> FmmMisfit<'a> {
             },
         )?;
         let n = self.survey.picks.len();
-        let mut out = crate::pinn::Linearisation {
-            residual_s: vec![0.0; n],
-            sigma_s: self
-                .survey
-                .picks
-                .iter()
-                .map(|p| p.sigma_or(self.sigma))
-                .collect(),
-            rays: vec![Vec::new(); n],
-        };
+        let mut residual_s = vec![0.0; n];
+        let mut rows = vec![Vec::new(); n];
         for (shot, results) in self.survey.shots.iter().zip(per) {
             for (&k, (t, ray)) in shot.picks.iter().zip(results) {
                 let t = t.map_err(|error| VerifyError::Shot {
                     id: shot.id.clone(),
                     error,
                 })?;
-                out.residual_s[k] = t - self.survey.picks[k].time;
+                residual_s[k] = self.survey.picks[k].time - t;
                 if let Some(ray) = ray {
-                    out.rays[k] = ray.weights;
+                    rows[k] = ray.weights;
                 }
             }
         }
-        Ok(out)
+        Ok(Linearisation {
+            residual_s,
+            sigma_s: self.sigma_s.clone(),
+            jacobian: Jacobian::from_rows(&rows, self.spec.len()),
+        })
     }
 }
 
-impl crate::pinn::TimeMisfit for FmmMisfit<'_> {
-    fn linearise(&mut self, velocity: &[f64]) -> Result<crate::pinn::Linearisation, String> {
+impl ForwardModel for FmmMisfit<'_> {
+    fn linearise(&mut self, velocity: &[f64]) -> Result<Linearisation, String> {
         FmmMisfit::linearise(self, velocity).map_err(|e| e.to_string())
     }
 }

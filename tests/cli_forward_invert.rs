@@ -215,9 +215,17 @@ fn invert_writes_every_output_and_resumes_to_the_same_result() {
     let report: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(d.path().join("full/report.json")).unwrap())
             .unwrap();
-    assert_eq!(report["steps"], 40);
+    assert_eq!(report["detail"]["pinn"]["steps"], 40);
     assert_eq!(report["n_picks"], 125);
-    assert!(report["fmm_misfit"]["rms_ms"].as_f64().unwrap().is_finite());
+    assert_eq!(report["method"], "pinn");
+    assert_eq!(report["settings"]["method"], "pinn");
+    assert!(report["judge"]["misfit"]["rms_ms"]
+        .as_f64()
+        .unwrap()
+        .is_finite());
+    // the judge works on half the inversion's cell
+    let cell = report["problem"]["cell_m"].as_f64().unwrap();
+    assert_eq!(report["judge"]["cell_m"].as_f64().unwrap(), 0.5 * cell);
     assert!(report["caution"].as_str().unwrap().contains("boreholes"));
     let fit = std::fs::read_to_string(d.path().join("full/fit.csv")).unwrap();
     assert_eq!(fit.lines().count(), 126);
@@ -238,16 +246,18 @@ fn invert_writes_every_output_and_resumes_to_the_same_result() {
     // whose fast-marching χ² is the one the refinement started from
     let r = &report["refinement"];
     assert!(r["iterations"].as_u64().unwrap() >= 1, "{r}");
-    assert!(report["method"].as_str().unwrap().contains("refinement"));
+    assert!(report["label"].as_str().unwrap().contains("refinement"));
     inv(&["--steps", "40", "--refine", "0"], "plain");
     let plain: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(d.path().join("plain/report.json")).unwrap())
             .unwrap();
     assert!(plain["refinement"].is_null());
-    assert_eq!(plain["method"], "pinn");
-    let pinn_chi2 = plain["fmm_misfit"]["chi2"].as_f64().unwrap();
+    assert_eq!(plain["label"], "pinn");
+    // the refinement starts from the PINN's velocity: its first χ² is the PINN-alone
+    // run's on the same (inversion) grid
+    let pinn_chi2 = plain["judge"]["inversion_grid"]["chi2"].as_f64().unwrap();
     assert!((pinn_chi2 - r["pinn_chi2"].as_f64().unwrap()).abs() <= 1e-9 * pinn_chi2);
-    assert!(report["fmm_misfit"]["chi2"].as_f64().unwrap() <= pinn_chi2);
+    assert!(report["judge"]["inversion_grid"]["chi2"].as_f64().unwrap() <= pinn_chi2);
 }
 
 #[test]

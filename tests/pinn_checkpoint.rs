@@ -27,7 +27,12 @@ fn survey() -> (Vec<Pick>, Domain, StartModel) {
         x_min: 0.0,
         x_max: 40.0,
         z_bottom: -15.0,
-        surface: vec![[0.0, 0.0], [40.0, 0.0]],
+        surface: slowfield::survey::Surface {
+            nodes: vec![
+                slowfield::survey::Point::new(0.0, 0.0),
+                slowfield::survey::Point::new(40.0, 0.0),
+            ],
+        },
     };
     (
         picks,

@@ -7,18 +7,18 @@
 //!   the fast-marching times for a small change of the model. Exactly so for a uniform
 //!   scaling (times are homogeneous of degree one in slowness); to first order for a
 //!   local perturbation.
-//! * End to end: the stage lowers the fast-marching χ² of a briefly trained PINN, and
-//!   the misfit the report gives is the refinement's own (the same solver on the same
-//!   grid, recomputed independently).
+//! * End to end: the stage lowers the fast-marching χ² of a briefly trained PINN; the
+//!   layer's inversion-grid misfit is the refinement's own (the same solver on the same
+//!   grid, recomputed independently), and the judge's finer grid gives its own.
 
 use slowfield::eikonal::FmmOptions;
+use slowfield::inversion::{self, Event, History, Inversion, Problem, Resume, Silent};
+use slowfield::linearised::{OuterLog, OuterState};
 use slowfield::model::{GridSpec, VelocityGrid};
-use slowfield::pinn::{Checkpoint, RefineState};
+use slowfield::pinn::Checkpoint;
 use slowfield::settings::RunSettings;
 use slowfield::survey::{Surface, Survey};
 use slowfield::verify::{predict, FmmMisfit};
-use slowfield::workflow::invert::{run, InvertJob, CHECKPOINT, REFINE_STATE};
-use std::path::PathBuf;
 
 mod common;
 
@@ -35,21 +35,24 @@ fn ray_sensitivities_predict_the_change_of_fast_marching_times() {
     let surf = Surface::flat(0.0);
     let base = VelocityGrid::from_fn(spec(), Some(&surf), |_, z| 400.0 - 40.0 * z);
     let survey = geometry();
-    let oracle = FmmMisfit::new(&survey, spec(), 5e-4);
+    let oracle = FmmMisfit::new(&survey, spec(), vec![5e-4; survey.picks.len()]);
     let lin = oracle.linearise(&base.v).unwrap();
     let opts = FmmOptions::default();
     let t_base = predict(&survey, &base, &opts).unwrap();
-    // residuals are T − t with t = 0 here, so they are the times themselves
+    // residuals are observed − predicted with observed = 0 here: minus the times
     for (r, t) in lin.residual_s.iter().zip(&t_base) {
-        assert_eq!(r, t);
+        assert_eq!(-r, *t);
     }
-    let traced = lin.rays.iter().filter(|r| !r.is_empty()).count();
+    let rays: Vec<Vec<(usize, f64)>> = (0..survey.picks.len())
+        .map(|i| lin.jacobian.row(i).collect())
+        .collect();
+    let traced = rays.iter().filter(|r| !r.is_empty()).count();
     assert_eq!(traced, survey.picks.len(), "every ray traced");
     let s: Vec<f64> = base.v.iter().map(|v| 1.0 / v).collect();
     // uniform scaling: J·(ε·s) = ε·T, i.e. the ray sum equals the field's time, within
     // the bound the ray tests hold at this spacing (tests/eikonal_rays.rs: 8 µs plus
     // 1e-4 of the time)
-    for (ray, t) in lin.rays.iter().zip(&t_base) {
+    for (ray, t) in rays.iter().zip(&t_base) {
         let ts: f64 = ray.iter().map(|&(k, w)| w * s[k]).sum();
         assert!((ts - t).abs() < 8e-6 + 1e-4 * t, "ray sum {ts} vs {t}");
     }
@@ -61,7 +64,7 @@ fn ray_sensitivities_predict_the_change_of_fast_marching_times() {
     let t_pert = predict(&survey, &pert, &opts).unwrap();
     let ds: Vec<f64> = pert.v.iter().zip(&s).map(|(v, s)| 1.0 / v - s).collect();
     let (mut num, mut den, mut big) = (0.0, 0.0, 0);
-    for ((ray, a), b) in lin.rays.iter().zip(&t_base).zip(&t_pert) {
+    for ((ray, a), b) in rays.iter().zip(&t_base).zip(&t_pert) {
         let dt = b - a;
         let pred: f64 = ray.iter().map(|&(k, w)| w * ds[k]).sum();
         num += (pred - dt).powi(2);
@@ -90,15 +93,42 @@ fn slab_survey() -> Survey {
     common::noisy_picks(&geometry(), &fine, 5)
 }
 
-fn job(out: PathBuf, settings: RunSettings) -> InvertJob {
-    InvertJob {
-        picks_path: "synthetic.csv".into(),
-        out,
-        settings,
-        resume: None,
-        resume_refine: None,
-        progress: false,
+/// The refinement's iterations, kept iteration and resumed-from of an inversion.
+fn outer(inv: &Inversion) -> (&[OuterLog], usize, Option<usize>) {
+    inv.stages
+        .iter()
+        .find_map(|s| match &s.history {
+            History::Linearised {
+                iterations,
+                kept,
+                resumed_from,
+                ..
+            } => Some((iterations.as_slice(), *kept, *resumed_from)),
+            History::Training { .. } => None,
+        })
+        .expect("the refinement ran")
+}
+
+/// Keeps the last checkpoint and refinement state in memory.
+#[derive(Default)]
+struct Keep {
+    checkpoint: Option<Checkpoint>,
+    state: Option<OuterState>,
+}
+
+impl inversion::Observer for Keep {
+    fn on(&mut self, e: Event<'_>) {
+        match e {
+            Event::Checkpoint(c) => self.checkpoint = Some(c.clone()),
+            Event::OuterState(s) => self.state = Some(s.clone()),
+            _ => {}
+        }
     }
+}
+
+fn invert(survey: &Survey, settings: &RunSettings, resume: Resume) -> Inversion {
+    let problem = Problem::new(survey.clone(), settings);
+    inversion::run(&problem, settings, resume, &mut Silent).unwrap()
 }
 
 #[test]
@@ -108,25 +138,31 @@ fn refinement_lowers_the_fast_marching_misfit_it_reports() {
     settings.pinn.steps = 300;
     settings.refine.iterations = 4;
     settings.refine.inner_steps = 40;
-    let dir = tempfile::tempdir().unwrap();
-    let report = run(&survey, &job(dir.path().join("out"), settings))
-        .unwrap()
-        .report;
-    let r = report.refinement.as_ref().expect("the stage ran");
+    let inv = invert(&survey, &settings, Resume::default());
+    let (its, kept, _) = outer(&inv);
+    let (before, after) = (its[0].chi2, its[kept].chi2);
     eprintln!(
-        "PINN χ² {:.3} → refined {:.3} (kept iteration {}); reported {:.3}",
-        r.pinn_chi2, r.refined_chi2, r.kept, report.fmm_misfit.chi2
+        "PINN χ² {before:.3} → refined {after:.3} (kept iteration {kept}); inversion grid {:.3}, judge {:.3}",
+        inv.judge.inversion_grid.chi2, inv.judge.misfit.chi2
     );
-    assert!(r.refined_chi2 < 0.7 * r.pinn_chi2, "{r:?}");
-    // the kept model is the best one seen
-    assert!(r.chi2.iter().all(|c| c.1 >= r.refined_chi2 - 1e-12));
-    // the verification recomputes the kept model's times on its own
-    let rel = (report.fmm_misfit.chi2 - r.refined_chi2).abs() / r.refined_chi2;
+    assert!(after < 0.7 * before, "{its:?}");
+    // accepted steps never raise the χ², and the kept model is the best one seen
+    let accepted: Vec<f64> = its.iter().filter(|l| l.accepted).map(|l| l.chi2).collect();
+    assert!(accepted.windows(2).all(|w| w[1] < w[0]), "{its:?}");
+    assert!(its.iter().all(|c| c.chi2 >= after - 1e-12));
+    // the layer recomputes the kept model's times on the same grid on its own
+    let rel = (inv.judge.inversion_grid.chi2 - after).abs() / after;
     assert!(
         rel < 1e-9,
-        "reported {} vs refined {}",
-        report.fmm_misfit.chi2,
-        r.refined_chi2
+        "inversion grid {} vs refined {after}",
+        inv.judge.inversion_grid.chi2
+    );
+    // the judge's finer grid agrees to within the discretisation, not exactly
+    assert!(inv.judge.misfit.chi2 != after);
+    assert!(
+        inv.judge.misfit.chi2 < 2.0 * after + 0.5,
+        "{}",
+        inv.judge.misfit.chi2
     );
 }
 
@@ -139,46 +175,69 @@ fn an_interrupted_refinement_continues_to_the_same_result() {
     settings.refine.inner_steps = 20;
     // out of reach, so all four iterations run
     settings.refine.chi2_target = 0.05;
-    let dir = tempfile::tempdir().unwrap();
-    let full = run(&survey, &job(dir.path().join("full"), settings.clone())).unwrap();
+    let full = invert(&survey, &settings, Resume::default());
     // a run stopped during the third iteration leaves the state of its start behind
     let mut short = settings.clone();
     short.refine.iterations = 2;
-    let cut = dir.path().join("cut");
-    run(&survey, &job(cut.clone(), short)).unwrap();
-    let cp = Checkpoint::from_bytes(&std::fs::read(cut.join(CHECKPOINT)).unwrap()).unwrap();
-    let st = RefineState::from_bytes(&std::fs::read(cut.join(REFINE_STATE)).unwrap()).unwrap();
+    let problem = Problem::new(survey.clone(), &short);
+    let mut keep = Keep::default();
+    inversion::run(&problem, &short, Resume::default(), &mut keep).unwrap();
+    let cp = keep.checkpoint.unwrap();
+    let st = OuterState::from_bytes(&keep.state.unwrap().to_bytes()).unwrap();
     assert_eq!(st.iteration(), 2);
-    let mut again = job(dir.path().join("resumed"), settings.clone());
-    again.resume = Some(cp);
-    again.resume_refine = Some(st.clone());
-    let resumed = run(&survey, &again).unwrap();
-    let (a, b) = (
-        full.report.refinement.as_ref().unwrap(),
-        resumed.report.refinement.as_ref().unwrap(),
+    let resumed = invert(
+        &survey,
+        &settings,
+        Resume {
+            checkpoint: Some(cp.clone()),
+            outer: Some(st.clone()),
+        },
     );
-    assert_eq!(b.resumed_from, Some(2));
-    assert_eq!(a.resumed_from, None);
-    assert_eq!(a.chi2.len(), 5);
-    for (x, y) in a.chi2.iter().zip(&b.chi2) {
-        assert_eq!(x.0, y.0);
-        assert_eq!(x.1.to_bits(), y.1.to_bits(), "iteration {}", x.0);
-    }
+    let (a, _, a_from) = outer(&full);
+    let (b, _, b_from) = outer(&resumed);
+    assert_eq!(b_from, Some(2));
+    assert_eq!(a_from, None);
+    assert_eq!(a.len(), 5);
+    // bit for bit (the predicted χ² is NaN at the start, so `==` cannot be used)
+    let key = |h: &[OuterLog]| {
+        h.iter()
+            .map(|l| {
+                (
+                    l.iteration,
+                    l.chi2.to_bits(),
+                    l.predicted_chi2.to_bits(),
+                    l.accepted,
+                )
+            })
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(key(a), key(b));
     let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
     assert_eq!(bits(&full.model.v), bits(&resumed.model.v));
     // a state from other settings is not used: the stage starts afresh
     let mut other = settings.clone();
     other.refine.reg_weight *= 2.0;
-    let mut stale = job(dir.path().join("stale"), other);
-    stale.resume_refine = Some(st.clone());
-    let r = run(&survey, &stale).unwrap();
-    assert_eq!(r.report.refinement.as_ref().unwrap().resumed_from, None);
+    let r = invert(
+        &survey,
+        &other,
+        Resume {
+            checkpoint: Some(cp.clone()),
+            outer: Some(st.clone()),
+        },
+    );
+    assert_eq!(outer(&r).2, None);
+    assert!(!r.notes.is_empty());
     // nor is a state from beyond the iterations asked for
     let mut fewer = settings.clone();
     fewer.refine.iterations = 1;
-    let mut past = job(dir.path().join("past"), fewer);
-    past.resume_refine = Some(st);
-    let r = run(&survey, &past).unwrap();
-    let f = r.report.refinement.as_ref().unwrap();
-    assert_eq!((f.resumed_from, f.chi2.len()), (None, 2));
+    let r = invert(
+        &survey,
+        &fewer,
+        Resume {
+            checkpoint: Some(cp),
+            outer: Some(st),
+        },
+    );
+    let (its, _, from) = outer(&r);
+    assert_eq!((from, its.len()), (None, 2));
 }

@@ -50,7 +50,12 @@ fn gradient_survey(
         x_min: 0.0,
         x_max: length,
         z_bottom: -25.0,
-        surface: vec![[0.0, 0.0], [length, 0.0]],
+        surface: slowfield::survey::Surface {
+            nodes: vec![
+                slowfield::survey::Point::new(0.0, 0.0),
+                slowfield::survey::Point::new(length, 0.0),
+            ],
+        },
     };
     (picks, domain)
 }

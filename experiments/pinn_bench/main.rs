@@ -38,7 +38,12 @@ fn survey() -> (Vec<Pick>, Domain, StartModel) {
         x_min: 0.0,
         x_max: 100.0,
         z_bottom: -25.0,
-        surface: vec![[0.0, 0.0], [100.0, 0.0]],
+        surface: slowfield::survey::Surface {
+            nodes: vec![
+                slowfield::survey::Point::new(0.0, 0.0),
+                slowfield::survey::Point::new(100.0, 0.0),
+            ],
+        },
     };
     (
         picks,

@@ -2,20 +2,9 @@
 
 use crate::model::GridSpec;
 
-/// Cell `(i, j)` holding `(x, z)` (clamped to the grid) and the fractional position
-/// `(wx, wz)` in it, each in `[0, 1]`.
-#[inline]
-pub(crate) fn locate(spec: &GridSpec, x: f64, z: f64) -> (usize, usize, f64, f64) {
-    let fx = ((x - spec.x0) / spec.dx).clamp(0.0, (spec.nx - 1) as f64);
-    let fz = ((z - spec.z0) / spec.dz).clamp(0.0, (spec.nz - 1) as f64);
-    let i = (fx.floor() as usize).min(spec.nx - 2);
-    let j = (fz.floor() as usize).min(spec.nz - 2);
-    (i, j, fx - i as f64, fz - j as f64)
-}
-
 /// True when some node with `ok(k)` lies within one cell diagonal of `(x, z)`.
 pub(crate) fn has_node_near(spec: &GridSpec, x: f64, z: f64, ok: impl Fn(usize) -> bool) -> bool {
-    let (i, j, wx, wz) = locate(spec, x, z);
+    let (i, j, wx, wz) = spec.locate(x, z);
     let diag2 = 1.0 + (spec.dz / spec.dx).powi(2);
     let r = spec.dz / spec.dx;
     for jj in j.saturating_sub(1)..=(j + 2).min(spec.nz - 1) {
@@ -45,7 +34,7 @@ pub(crate) fn sample(
     z: f64,
     val: impl Fn(usize) -> Option<f64>,
 ) -> Option<(f64, f64, f64)> {
-    let (i, j, wx, wz) = locate(spec, x, z);
+    let (i, j, wx, wz) = spec.locate(x, z);
     let k00 = spec.idx(i, j);
     let c = [
         val(k00),
@@ -118,58 +107,4 @@ fn solve3(m: [[f64; 3]; 3], r: [f64; 3]) -> Option<[f64; 3]> {
         *o = det(a) / d;
     }
     Some(out)
-}
-
-/// Bilinear weights of the four corners of the cell holding `(x, z)`, with the corners
-/// where `ok` is false dropped and the rest renormalised: `(node, weight)` pairs. When
-/// every corner with positive weight is excluded, the nearest allowed corner gets all
-/// of it; empty when no corner is allowed.
-pub(crate) fn corner_weights(
-    spec: &GridSpec,
-    x: f64,
-    z: f64,
-    ok: impl Fn(usize) -> bool,
-) -> ([(usize, f64); 4], usize) {
-    let (i, j, wx, wz) = locate(spec, x, z);
-    let k00 = spec.idx(i, j);
-    let all = [
-        (k00, (1.0 - wx) * (1.0 - wz)),
-        (k00 + 1, wx * (1.0 - wz)),
-        (k00 + spec.nx, (1.0 - wx) * wz),
-        (k00 + spec.nx + 1, wx * wz),
-    ];
-    let mut out = [(0usize, 0.0f64); 4];
-    let mut n = 0;
-    let mut sum = 0.0;
-    for &(k, w) in &all {
-        if w > 0.0 && ok(k) {
-            out[n] = (k, w);
-            n += 1;
-            sum += w;
-        }
-    }
-    if n > 0 && sum > 1e-12 {
-        for o in &mut out[..n] {
-            o.1 /= sum;
-        }
-        return (out, n);
-    }
-    // nearest allowed corner
-    let mut best: Option<(usize, f64)> = None;
-    for (c, &(k, _)) in all.iter().enumerate() {
-        if ok(k) {
-            let (cx, cz) = ((c % 2) as f64, (c / 2) as f64);
-            let d = (cx - wx).powi(2) + (cz - wz).powi(2);
-            if best.is_none_or(|b| d < b.1) {
-                best = Some((k, d));
-            }
-        }
-    }
-    match best {
-        Some((k, _)) => {
-            out[0] = (k, 1.0);
-            (out, 1)
-        }
-        None => (out, 0),
-    }
 }

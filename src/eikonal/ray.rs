@@ -1,6 +1,5 @@
 //! Rays by steepest descent of the fast-marching time, and their sensitivities.
 
-use super::interp;
 use super::{EikonalError, Point, Role, TimeField};
 use crate::model::GridSpec;
 
@@ -87,8 +86,7 @@ impl Ray {
                     continue;
                 }
                 let t = 0.5 * (c[0] + c[1]);
-                let (i, j, _, _) =
-                    interp::locate(spec, a.x + t * (b.x - a.x), a.z + t * (b.z - a.z));
+                let (i, j, _, _) = spec.locate(a.x + t * (b.x - a.x), a.z + t * (b.z - a.z));
                 acc.push((j * ncx + i, piece));
             }
         }
@@ -199,7 +197,7 @@ pub fn trace_ray(
             continue;
         }
         length += l;
-        let (cw, n) = interp::corner_weights(&spec, 0.5 * (a.x + b.x), 0.5 * (a.z + b.z), ok);
+        let (cw, n) = spec.corner_weights(0.5 * (a.x + b.x), 0.5 * (a.z + b.z), ok);
         for &(k, wk) in &cw[..n] {
             acc.push((k, wk * l));
         }
@@ -213,7 +211,7 @@ pub fn trace_ray(
 
 /// Bilinear interpolation of the indicator "this node has a time" (1) or not (0).
 fn ground_fraction(spec: &GridSpec, field: &TimeField, p: Point) -> f64 {
-    let (i, j, wx, wz) = interp::locate(spec, p.x, p.z);
+    let (i, j, wx, wz) = spec.locate(p.x, p.z);
     let k = spec.idx(i, j);
     let g = |k: usize| {
         if field.times()[k] < f64::INFINITY {

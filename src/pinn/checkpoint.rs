@@ -4,8 +4,23 @@
 //! the order of [`Checkpoint::to_bytes`]. Floats are stored as their bit patterns, so
 //! a resumed run continues bit for bit.
 
-use super::train::State;
 use super::{Domain, Pick, PinnError, PinnSettings, StartModel, StepLog};
+use crate::state_bytes::{put_f64, put_u32, put_u64, Fnv, Reader};
+
+/// Mutable training state; everything a checkpoint must hold.
+#[derive(Clone, Debug)]
+pub(crate) struct State {
+    pub step: usize,
+    pub params: Vec<f32>,
+    pub m: Vec<f32>,
+    pub v: Vec<f32>,
+    pub lr_scale: f64,
+    pub retries: u32,
+    pub best_obj: f64,
+    pub since_best: usize,
+    pub best_params: Vec<f32>,
+    pub history: Vec<StepLog>,
+}
 
 const MAGIC: &[u8; 8] = b"SFPINNCK";
 const VERSION: u32 = 1;
@@ -89,6 +104,10 @@ impl Checkpoint {
 
     /// Reads bytes written by [`Checkpoint::to_bytes`].
     pub fn from_bytes(bytes: &[u8]) -> Result<Checkpoint, PinnError> {
+        Self::read(bytes).map_err(PinnError::CheckpointCorrupt)
+    }
+
+    fn read(bytes: &[u8]) -> Result<Checkpoint, String> {
         let mut r = Reader::new(bytes);
         r.header(MAGIC, VERSION, "a slowfield PINN checkpoint")?;
         let fingerprint = r.u64()?;
@@ -119,7 +138,7 @@ impl Checkpoint {
                 *x = match r.take(1)?[0] {
                     0 => None,
                     1 => Some(r.f64()?),
-                    _ => return Err(PinnError::CheckpointCorrupt("bad history entry".into())),
+                    _ => return Err("bad history entry".into()),
                 };
             }
             history.push(StepLog {
@@ -136,10 +155,7 @@ impl Checkpoint {
         }
         let n = r.len(1)?;
         let settings_json = String::from_utf8(r.take(n)?.to_vec())
-            .map_err(|_| PinnError::CheckpointCorrupt("settings are not text".into()))?;
-        if r.at != bytes.len() {
-            return Err(PinnError::CheckpointCorrupt("trailing bytes".into()));
-        }
+            .map_err(|_| "settings are not text".to_string())?;
         let mut vecs = vecs.into_iter();
         let (params, m, v, best_params) = (
             vecs.next().unwrap_or_default(),
@@ -148,9 +164,7 @@ impl Checkpoint {
             vecs.next().unwrap_or_default(),
         );
         if m.len() != params.len() || v.len() != params.len() || best_params.len() != params.len() {
-            return Err(PinnError::CheckpointCorrupt(
-                "vector lengths disagree".into(),
-            ));
+            return Err("vector lengths disagree".into());
         }
         r.finish()?;
         Ok(Checkpoint {
@@ -169,90 +183,6 @@ impl Checkpoint {
             fingerprint,
             settings_json,
         })
-    }
-}
-
-pub(super) fn put_u32(w: &mut Vec<u8>, x: u32) {
-    w.extend_from_slice(&x.to_le_bytes());
-}
-pub(super) fn put_u64(w: &mut Vec<u8>, x: u64) {
-    w.extend_from_slice(&x.to_le_bytes());
-}
-pub(super) fn put_f64(w: &mut Vec<u8>, x: f64) {
-    put_u64(w, x.to_bits());
-}
-
-pub(super) struct Reader<'a> {
-    b: &'a [u8],
-    at: usize,
-}
-
-impl<'a> Reader<'a> {
-    pub(super) fn new(b: &'a [u8]) -> Reader<'a> {
-        Reader { b, at: 0 }
-    }
-    /// Checks the magic bytes and the format version; `what` names the kind of file.
-    pub(super) fn header(
-        &mut self,
-        magic: &[u8; 8],
-        version: u32,
-        what: &str,
-    ) -> Result<(), PinnError> {
-        if self.take(8)? != magic {
-            return Err(PinnError::CheckpointCorrupt(format!("it is not {what}")));
-        }
-        let ver = self.u32()?;
-        if ver != version {
-            return Err(PinnError::CheckpointCorrupt(format!(
-                "format version {ver} of {what}, this build reads {version}"
-            )));
-        }
-        Ok(())
-    }
-    pub(super) fn take(&mut self, n: usize) -> Result<&'a [u8], PinnError> {
-        if self.b.len() - self.at < n {
-            return Err(PinnError::CheckpointCorrupt(
-                "it ends early (truncated file?)".into(),
-            ));
-        }
-        let s = &self.b[self.at..self.at + n];
-        self.at += n;
-        Ok(s)
-    }
-    pub(super) fn u32(&mut self) -> Result<u32, PinnError> {
-        let mut a = [0u8; 4];
-        a.copy_from_slice(self.take(4)?);
-        Ok(u32::from_le_bytes(a))
-    }
-    pub(super) fn u64(&mut self) -> Result<u64, PinnError> {
-        let mut a = [0u8; 8];
-        a.copy_from_slice(self.take(8)?);
-        Ok(u64::from_le_bytes(a))
-    }
-    pub(super) fn f64(&mut self) -> Result<f64, PinnError> {
-        Ok(f64::from_bits(self.u64()?))
-    }
-    /// Fails when bytes are left over (a damaged length field, or another file).
-    pub(super) fn finish(&self) -> Result<(), PinnError> {
-        if self.at == self.b.len() {
-            Ok(())
-        } else {
-            Err(PinnError::CheckpointCorrupt(format!(
-                "{} bytes left over after the last field",
-                self.b.len() - self.at
-            )))
-        }
-    }
-    /// A length prefix, checked against the bytes left (`unit` bytes per item).
-    pub(super) fn len(&mut self, unit: usize) -> Result<usize, PinnError> {
-        let n = self.u64()?;
-        let left = (self.b.len() - self.at) as u64;
-        if n.saturating_mul(unit as u64) > left {
-            return Err(PinnError::CheckpointCorrupt(
-                "a length exceeds the data".into(),
-            ));
-        }
-        Ok(n as usize)
     }
 }
 
@@ -281,9 +211,9 @@ pub(crate) fn fingerprint(
     for x in [domain.x_min, domain.x_max, domain.z_bottom] {
         eat(&x.to_bits().to_le_bytes());
     }
-    for p in &domain.surface {
-        eat(&p[0].to_bits().to_le_bytes());
-        eat(&p[1].to_bits().to_le_bytes());
+    for p in &domain.surface.nodes {
+        eat(&p.x.to_bits().to_le_bytes());
+        eat(&p.z.to_bits().to_le_bytes());
     }
     eat(serde_json::to_string(start).unwrap_or_default().as_bytes());
     let mut s = settings.clone();
@@ -292,20 +222,4 @@ pub(crate) fn fingerprint(
     s.threads = 0;
     eat(serde_json::to_string(&s).unwrap_or_default().as_bytes());
     fnv.0
-}
-
-/// FNV-1a (Fowler–Noll–Vo), 64 bits: the fingerprints of checkpoints and refinement
-/// states.
-pub(super) struct Fnv(pub(super) u64);
-
-impl Fnv {
-    pub(super) fn new() -> Fnv {
-        Fnv(0xcbf2_9ce4_8422_2325)
-    }
-    pub(super) fn eat(&mut self, bytes: &[u8]) {
-        for &b in bytes {
-            self.0 ^= b as u64;
-            self.0 = self.0.wrapping_mul(0x0100_0000_01b3);
-        }
-    }
 }

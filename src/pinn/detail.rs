@@ -13,9 +13,9 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 
-use super::net::{Activation, MlpShape, NetTensors};
-use super::refine::RefineSettings;
-use super::{Domain, PinnSettings};
+use super::net::{MlpShape, NetTensors};
+use super::Domain;
+use crate::settings::{Activation, PinnSettings, RefineSettings};
 use burn::prelude::*;
 
 /// Random stream of the frequencies (apart from the weights' streams).
@@ -138,7 +138,7 @@ impl Detail {
 
 #[cfg(test)]
 mod tests {
-    use super::super::train::to_f64;
+    use super::super::net::to_f64;
     use super::*;
 
     fn domain() -> Domain {
@@ -146,7 +146,13 @@ mod tests {
             x_min: 0.0,
             x_max: 60.0,
             z_bottom: -20.0,
-            surface: vec![[0.0, 0.0], [30.0, 3.0], [60.0, 1.0]],
+            surface: crate::survey::Surface {
+                nodes: vec![
+                    crate::survey::Point::new(0.0, 0.0),
+                    crate::survey::Point::new(30.0, 3.0),
+                    crate::survey::Point::new(60.0, 1.0),
+                ],
+            },
         }
     }
 

@@ -6,29 +6,12 @@ use super::{Domain, StartModel};
 impl Domain {
     /// Ground elevation at `x` (piecewise linear, constant beyond the end points), m.
     pub fn elevation(&self, x: f64) -> f64 {
-        let s = &self.surface;
-        if s.len() == 1 || x <= s[0][0] {
-            return s[0][1];
-        }
-        let last = s[s.len() - 1];
-        if x >= last[0] {
-            return last[1];
-        }
-        let k = s.partition_point(|p| p[0] <= x).max(1);
-        let (a, b) = (s[k - 1], s[k]);
-        let w = (x - a[0]) / (b[0] - a[0]);
-        a[1] + w * (b[1] - a[1])
+        self.surface.elevation(x)
     }
 
     /// Ground slope `d(elevation)/dx` at `x` (0 beyond the end points).
     pub fn slope(&self, x: f64) -> f64 {
-        let s = &self.surface;
-        if s.len() < 2 || x < s[0][0] || x > s[s.len() - 1][0] {
-            return 0.0;
-        }
-        let k = s.partition_point(|p| p[0] <= x).clamp(1, s.len() - 1);
-        let (a, b) = (s[k - 1], s[k]);
-        (b[1] - a[1]) / (b[0] - a[0])
+        self.surface.slope(x)
     }
 
     /// Depth below the ground of `(x, z)`, m (negative above it).
@@ -38,10 +21,7 @@ impl Domain {
 
     /// Highest ground elevation, m.
     pub fn z_top(&self) -> f64 {
-        self.surface
-            .iter()
-            .map(|p| p[1])
-            .fold(f64::NEG_INFINITY, f64::max)
+        self.surface.highest()
     }
 
     /// Largest depth of the domain (highest ground to the bottom), m.

@@ -30,6 +30,8 @@ mod checkpoint;
 mod detail;
 mod fused;
 pub mod geom;
+mod loss;
+mod model;
 pub mod net;
 pub mod refine;
 mod sampler;
@@ -38,14 +40,15 @@ mod validate;
 
 use serde::{Deserialize, Serialize};
 
+pub use crate::regularise::Regulariser;
+pub use crate::settings::{Activation, PinnSettings, RefineSettings};
+use crate::survey::Surface;
 pub use checkpoint::Checkpoint;
 pub use fused::keep_freed_memory;
-pub use net::{Activation, MlpShape};
-pub use refine::{
-    refine, Linearisation, RefineLog, RefineObserver, RefineOutcome, RefineSettings, RefineState,
-    TimeMisfit,
-};
-pub use train::{train, TrainedModel};
+pub use model::TrainedModel;
+pub use net::MlpShape;
+pub use refine::{refine, RefineOutcome};
+pub use train::train;
 
 /// One first-arrival pick. Positions `(x, z)` in m (z elevation), times in s.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -69,9 +72,9 @@ pub struct Domain {
     pub x_max: f64,
     /// Bottom elevation, m.
     pub z_bottom: f64,
-    /// Piecewise-linear ground `(x, z)`, sorted by x (at least one point; constant
-    /// beyond the ends).
-    pub surface: Vec<[f64; 2]>,
+    /// The ground, piecewise linear between its vertices (sorted by x, at least one;
+    /// constant beyond the ends).
+    pub surface: Surface,
 }
 
 /// 1-D start model, velocity as a function of depth below the ground.
@@ -91,149 +94,6 @@ pub enum StartModel {
         /// velocity at each depth, m/s
         velocity: Vec<f64>,
     },
-}
-
-/// Model regulariser.
-#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
-#[serde(rename_all = "snake_case")]
-pub enum Regulariser {
-    /// Smoothness, mean of `|L∇v/Δv|²`.
-    Smoothness,
-    /// Total variation, mean of `sqrt(|L∇v/Δv|² + ε²)` (ε = 1e-3), for blocky ground.
-    TotalVariation,
-    /// Minimum gradient support, mean of `g²/(g² + β²)` with `g = |L∇v/Δv|`: counts where
-    /// the velocity changes rather than by how much, so a step costs less than a ramp
-    /// (Portniaguine & Zhdanov 1999, Geophysics 64(3)).
-    MinimumSupport,
-}
-
-/// Every knob of the engine, each with a default that suits a typical spread
-/// (70–150 m line, 20–30 m deep, 50–70 receivers, 12–20 shots).
-#[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
-#[serde(default, deny_unknown_fields)]
-pub struct PinnSettings {
-    /// Lowest velocity the model may take, m/s.
-    pub v_min: f64,
-    /// Highest velocity the model may take, m/s.
-    pub v_max: f64,
-    /// 2: velocity `v(x, z)`; 1: velocity `v(depth)` only.
-    pub dim: u8,
-    /// Hidden width of the travel-time network.
-    pub tau_width: usize,
-    /// Hidden layers of the travel-time network.
-    pub tau_depth: usize,
-    /// Hidden width of the velocity network.
-    pub vel_width: usize,
-    /// Hidden layers of the velocity network.
-    pub vel_depth: usize,
-    /// 2-D velocity input `(x, depth below the ground)` instead of `(x, z)`: layers
-    /// that follow the topography are then simple functions of the input.
-    pub vel_follow_ground: bool,
-    /// Factor on the velocity network's scaled inputs (about `[-1, 1]` at 1): larger
-    /// values let the first layer resolve shorter wavelengths (the frequency scale of
-    /// Fourier-feature and sine networks: Tancik et al. 2020, Sitzmann et al. 2020,
-    /// NeurIPS).
-    pub vel_input_scale: f64,
-    /// Hidden activation of both networks.
-    pub activation: Activation,
-    /// Evaluate tanh as `1 − 2/(exp(2a)+1)` with a vectorised `exp` (faster; within
-    /// 2.5e-7 of tanh); `false`: the C library's `tanhf`.
-    pub fast_tanh: bool,
-    /// Training steps (the run may stop earlier).
-    pub steps: usize,
-    /// Initial Adam step size.
-    pub learning_rate: f64,
-    /// Steps over which the step size halves.
-    pub lr_half_life: f64,
-    /// Smallest step size.
-    pub lr_min: f64,
-    /// Adam β1.
-    pub beta1: f64,
-    /// Adam β2.
-    pub beta2: f64,
-    /// Adam ε.
-    pub adam_eps: f64,
-    /// Collocation points per step.
-    pub collocation: usize,
-    /// Share of collocation points drawn around source–receiver paths (rest uniform).
-    pub ray_fraction: f64,
-    /// How far (× offset) below the straight path the path-guided points may reach.
-    pub ray_sag: f64,
-    /// Picks per step (all of them when there are fewer).
-    pub pick_batch: usize,
-    /// Collocation points per shard: each step's batch is split into shards that run
-    /// in parallel on the worker threads (results do not depend on the thread count).
-    pub shard_points: usize,
-    /// Weight of the data misfit `mean(((T − t)/σ)²)`.
-    pub data_weight: f64,
-    /// Weight of the eikonal residual `mean((v·|∇T| − 1)²)`.
-    pub eikonal_weight: f64,
-    /// Regulariser kind.
-    pub regulariser: Regulariser,
-    /// Weight of the regulariser.
-    pub reg_weight: f64,
-    /// Train the velocity network (false: keep the start model, solve times only).
-    pub train_velocity: bool,
-    /// Stop when the data chi² (mean of `((T − t)/σ)²` over all picks) reaches this
-    /// and the eikonal RMS is below `eikonal_target`.
-    pub chi2_target: f64,
-    /// Eikonal RMS needed for the chi² stop.
-    pub eikonal_target: f64,
-    /// Steps between full evaluations (chi², eikonal RMS, early stop).
-    pub eval_every: usize,
-    /// Evaluations without a 1 % improvement of the objective before stopping (0: never).
-    pub patience: usize,
-    /// Steps between checkpoints (0: only at the end).
-    pub checkpoint_every: usize,
-    /// Roll-backs after a non-finite loss before giving up.
-    pub max_retries: u32,
-    /// Seed of every random choice (weights, collocation, pick batches).
-    pub seed: u64,
-    /// Worker threads (0: rayon's default). Results do not depend on it.
-    pub threads: usize,
-}
-
-impl Default for PinnSettings {
-    fn default() -> Self {
-        PinnSettings {
-            v_min: 100.0,
-            v_max: 5000.0,
-            dim: 2,
-            tau_width: 64,
-            tau_depth: 4,
-            vel_width: 32,
-            vel_depth: 3,
-            vel_follow_ground: true,
-            vel_input_scale: 1.0,
-            activation: Activation::Tanh,
-            fast_tanh: true,
-            steps: 3000,
-            learning_rate: 2e-3,
-            lr_half_life: 2000.0,
-            lr_min: 1e-5,
-            beta1: 0.9,
-            beta2: 0.999,
-            adam_eps: 1e-8,
-            collocation: 2048,
-            ray_fraction: 0.5,
-            ray_sag: 0.3,
-            pick_batch: 1024,
-            shard_points: 1024,
-            data_weight: 1.0,
-            eikonal_weight: 1000.0,
-            regulariser: Regulariser::Smoothness,
-            reg_weight: 1e-3,
-            train_velocity: true,
-            chi2_target: 1.0,
-            eikonal_target: 0.01,
-            eval_every: 50,
-            patience: 10,
-            checkpoint_every: 500,
-            max_retries: 3,
-            seed: 1,
-            threads: 0,
-        }
-    }
 }
 
 /// One training step as reported to the [`Observer`].
@@ -364,11 +224,6 @@ pub enum PinnError {
         "the checkpoint cannot be read: {0}; it is damaged or from another version, start afresh"
     )]
     CheckpointCorrupt(String),
-    /// A refinement state (`refine.bin`) that cannot be read.
-    #[error(
-        "the refinement state cannot be read: {0}; delete it to redo the refinement from the PINN checkpoint"
-    )]
-    RefineStateCorrupt(String),
     /// The forward solver of the refinement stage refused the model.
     #[error("refining the velocity against fast marching: {0}")]
     Refine(String),

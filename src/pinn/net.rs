@@ -26,18 +26,18 @@ use burn::prelude::*;
 use burn::tensor::activation::sigmoid;
 
 use super::fused::{self, Act};
+pub use crate::settings::Activation;
 use burn::tensor::Gradients;
 use rand::Rng;
-use serde::{Deserialize, Serialize};
 
-/// Hidden-layer activation.
-#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
-#[serde(rename_all = "lowercase")]
-pub enum Activation {
-    /// Hyperbolic tangent, slope `1 − y²`.
-    Tanh,
-    /// Sine, slope `cos a` (periodic activations: Sitzmann et al. 2020, NeurIPS).
-    Sine,
+/// The values of a `[n, 1]` or `[n, k]` tensor as `f64`, row by row.
+pub(crate) fn to_f64(t: Tensor<2>) -> Vec<f64> {
+    t.into_data()
+        .try_into_vec::<f32>()
+        .unwrap_or_default()
+        .into_iter()
+        .map(f64::from)
+        .collect()
 }
 
 /// Layer sizes of a fully connected network, input first, output last.

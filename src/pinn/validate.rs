@@ -10,6 +10,15 @@ fn bad(name: &'static str, problem: String, hint: &'static str) -> PinnError {
     }
 }
 
+/// The refinement stage's settings.
+pub(crate) fn refine(s: &crate::settings::RefineSettings) -> Result<(), PinnError> {
+    s.validate().map_err(|problem| PinnError::Setting {
+        name: "refine",
+        problem,
+        hint: "see the [refine] table of settings.toml",
+    })
+}
+
 pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
     if !(s.v_min.is_finite() && s.v_min > 0.0) {
         return Err(bad(
@@ -156,23 +165,24 @@ pub(crate) fn domain(d: &Domain) -> Result<(), PinnError> {
             d.x_min, d.x_max
         )));
     }
-    if d.surface.is_empty() {
+    if d.surface.nodes.is_empty() {
         return Err(PinnError::Domain("the ground surface has no points".into()));
     }
-    for (k, w) in d.surface.windows(2).enumerate() {
-        if w[1][0].partial_cmp(&w[0][0]) != Some(std::cmp::Ordering::Greater) {
+    for (k, w) in d.surface.nodes.windows(2).enumerate() {
+        if w[1].x.partial_cmp(&w[0].x) != Some(std::cmp::Ordering::Greater) {
             return Err(PinnError::Domain(format!(
                 "surface point {} (x = {}) is not right of point {} (x = {})",
                 k + 1,
-                w[1][0],
+                w[1].x,
                 k,
-                w[0][0]
+                w[0].x
             )));
         }
     }
     if d.surface
+        .nodes
         .iter()
-        .any(|p| !(p[0].is_finite() && p[1].is_finite()))
+        .any(|p| !(p.x.is_finite() && p.z.is_finite()))
     {
         return Err(PinnError::Domain(
             "a surface point is not a finite number".into(),
@@ -180,7 +190,7 @@ pub(crate) fn domain(d: &Domain) -> Result<(), PinnError> {
     }
     let lowest = (0..=200)
         .map(|k| d.elevation(d.x_min + (d.x_max - d.x_min) * k as f64 / 200.0))
-        .chain(d.surface.iter().map(|p| p[1]))
+        .chain(d.surface.nodes.iter().map(|p| p.z))
         .fold(f64::INFINITY, f64::min);
     if !(d.z_bottom.is_finite() && d.z_bottom < lowest) {
         return Err(PinnError::Domain(format!(
@@ -243,8 +253,9 @@ fn ground_path(d: &Domain, a: [f64; 2], b: [f64; 2]) -> f64 {
     let mut xs = vec![lo[0]];
     xs.extend(
         d.surface
+            .nodes
             .iter()
-            .map(|p| p[0])
+            .map(|p| p.x)
             .filter(|&x| x > lo[0] && x < hi[0]),
     );
     xs.push(hi[0]);

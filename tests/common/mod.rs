@@ -101,16 +101,5 @@ pub fn noisy_picks(
     truth: &slowfield::model::VelocityGrid,
     seed: u64,
 ) -> slowfield::survey::Survey {
-    use rand::SeedableRng;
-    use rand_distr::Distribution;
-    let grid = slowfield::verify::solver_grid(truth, &geometry.surface, 0.25).unwrap();
-    let opts = slowfield::eikonal::FmmOptions::default();
-    let times = slowfield::verify::predict(geometry, &grid, &opts).unwrap();
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
-    let noise = rand_distr::Normal::new(0.0, 5e-4).unwrap();
-    let mut picks = geometry.picks.clone();
-    for (p, t) in picks.iter_mut().zip(&times) {
-        p.time = t + noise.sample(&mut rng);
-    }
-    slowfield::survey::Survey::from_picks(picks).unwrap()
+    slowfield::synthetic::picks(geometry, truth, 0.25, 5e-4, seed).unwrap()
 }

@@ -6,12 +6,34 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{read_text, InputError};
-use crate::pinn::{PinnSettings, RefineSettings};
+mod engine;
+
+pub use engine::{Activation, PinnSettings, RefineSettings, Regulariser};
+
+/// The inversion method.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Method {
+    /// Physics-informed neural network, then (unless `[refine] iterations = 0`) its
+    /// velocity network refined against fast marching.
+    Pinn,
+}
+
+impl Method {
+    /// The name used in settings files, reports and on the command line.
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::Pinn => "pinn",
+        }
+    }
+}
 
 /// Settings of an inversion run.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
 pub struct RunSettings {
+    /// The inversion method.
+    pub method: Method,
     /// Uncertainty of picks that carry no `sigma_ms` of their own, ms.
     pub sigma_ms: f64,
     /// Node spacing of the output model and of the fast-marching check, m
@@ -31,6 +53,7 @@ pub struct RunSettings {
 impl Default for RunSettings {
     fn default() -> Self {
         RunSettings {
+            method: Method::Pinn,
             sigma_ms: 0.5,
             cell_m: None,
             depth_m: None,

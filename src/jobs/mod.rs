@@ -1,17 +1,70 @@
-//! The jobs behind the commands: read the inputs, call the solvers, write the results.
+//! The jobs behind the commands: read the inputs, call the library, write the results.
+//! Each job takes a plain request (the command line builds it; so can any program).
 
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
 use anyhow::Context;
 
-use crate::cli::{CheckArgs, DemoArgs, ForwardArgs, InvertArgs, RegFlag};
-use crate::settings::RunSettings;
-
 pub mod invert;
+pub use invert::{invert, InvertRequest, Overrides};
+
+use crate::inversion;
 use crate::output::write_atomic;
 use crate::qc::{self, QcSettings};
+use crate::settings::RunSettings;
 use crate::survey::{self, Survey};
+
+/// What `check` is asked.
+#[derive(Debug, Clone)]
+pub struct CheckRequest {
+    /// Picks file.
+    pub picks: PathBuf,
+    /// Ground-surface file (default: through the stations).
+    pub surface: Option<PathBuf>,
+    /// Print JSON instead of text.
+    pub json: bool,
+    /// Floor of the reciprocal-time tolerance, ms.
+    pub reciprocal_ms: f64,
+    /// Relative part of the reciprocal-time tolerance, %.
+    pub reciprocal_percent: f64,
+    /// Stations closer than this are one position, m.
+    pub position_tol: f64,
+    /// Outlier threshold floor, ms.
+    pub outlier_ms: f64,
+}
+
+/// What `forward` is asked.
+#[derive(Debug, Clone)]
+pub struct ForwardRequest {
+    /// Velocity model file.
+    pub model: PathBuf,
+    /// Picks file giving the geometry.
+    pub picks: PathBuf,
+    /// Ground-surface file (default: through the stations).
+    pub surface: Option<PathBuf>,
+    /// Output picks file.
+    pub output: PathBuf,
+    /// Gaussian noise σ to add, ms.
+    pub noise_ms: Option<f64>,
+    /// Seed of the noise.
+    pub seed: u64,
+    /// Solver cell, m (default from the model and the receivers).
+    pub cell: Option<f64>,
+    /// Also write observed times and residuals.
+    pub residuals: bool,
+    /// First-order stencil.
+    pub first_order: bool,
+}
+
+/// What `demo` is asked.
+#[derive(Debug, Clone)]
+pub struct DemoRequest {
+    /// Output folder.
+    pub output: PathBuf,
+    /// Training steps at most (default: the run's default).
+    pub steps: Option<usize>,
+}
 
 /// Exit code for input that cannot be used.
 pub const EXIT_UNUSABLE: u8 = 1;
@@ -31,7 +84,7 @@ fn unusable(e: &crate::error::InputErrors) -> ExitCode {
 }
 
 /// `slowfield check`.
-pub fn check(a: &CheckArgs) -> anyhow::Result<ExitCode> {
+pub fn check(a: &CheckRequest) -> anyhow::Result<ExitCode> {
     for (name, v) in [
         ("--reciprocal-ms", a.reciprocal_ms),
         ("--reciprocal-percent", a.reciprocal_percent),
@@ -105,9 +158,7 @@ pub fn picks_csv(survey: &Survey, times: &[f64], sigma: Option<&[f64]>, residual
 }
 
 /// `slowfield forward`.
-pub fn forward(a: &ForwardArgs) -> anyhow::Result<ExitCode> {
-    use rand::SeedableRng;
-    use rand_distr::Distribution;
+pub fn forward(a: &ForwardRequest) -> anyhow::Result<ExitCode> {
     if let Some(n) = a.noise_ms {
         if !(n.is_finite() && n > 0.0) {
             anyhow::bail!("--noise-ms must be a positive number of milliseconds, got {n}");
@@ -131,13 +182,9 @@ pub fn forward(a: &ForwardArgs) -> anyhow::Result<ExitCode> {
     let mut times = crate::verify::predict(&survey, &grid, &opts)
         .map_err(|e| anyhow::anyhow!("{} with {}: {e}", a.model.display(), a.picks.display()))?;
     let sigma = a.noise_ms.map(|n| {
-        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(a.seed);
-        let normal = rand_distr::Normal::new(0.0, n * 1e-3).expect("positive sigma");
-        for t in times.iter_mut() {
-            // keep times physical: a noisy time never goes below zero
-            *t = (*t + normal.sample(&mut rng)).max(0.0);
-        }
-        vec![n * 1e-3; times.len()]
+        let sigma = vec![n * 1e-3; times.len()];
+        crate::synthetic::add_noise(&mut times, &sigma, a.seed);
+        sigma
     });
     let text = picks_csv(&survey, &times, sigma.as_deref(), a.residuals);
     write_atomic(&a.output, text.as_bytes())
@@ -158,128 +205,6 @@ pub fn forward(a: &ForwardArgs) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// The settings of `invert`: defaults, then the file (or the resumed run's), then flags.
-pub fn invert_settings(
-    a: &InvertArgs,
-) -> anyhow::Result<(
-    RunSettings,
-    Option<crate::pinn::Checkpoint>,
-    Option<crate::pinn::RefineState>,
-)> {
-    let mut s = match &a.config {
-        Some(p) => RunSettings::read(p).map_err(|e| anyhow::anyhow!("{e}"))?,
-        None => RunSettings::default(),
-    };
-    let mut resume = None;
-    let mut resume_refine = None;
-    if let Some(dir) = &a.resume {
-        let rs_path = dir.join(invert::REFINE_STATE);
-        if rs_path.exists() {
-            let bytes = std::fs::read(&rs_path)
-                .with_context(|| format!("cannot read {}", rs_path.display()))?;
-            let rs = crate::pinn::RefineState::from_bytes(&bytes)
-                .map_err(|e| anyhow::anyhow!("{}: {e}", rs_path.display()))?;
-            resume_refine = Some(rs);
-        }
-        let cp_path = dir.join(invert::CHECKPOINT);
-        let bytes = std::fs::read(&cp_path).with_context(|| {
-            format!(
-                "cannot read the checkpoint {}: resume from the output folder of an earlier run",
-                cp_path.display()
-            )
-        })?;
-        let cp = crate::pinn::Checkpoint::from_bytes(&bytes)
-            .map_err(|e| anyhow::anyhow!("{}: {e}", cp_path.display()))?;
-        if a.config.is_none() {
-            let st = dir.join("settings.toml");
-            if st.exists() {
-                s = RunSettings::read(&st).map_err(|e| anyhow::anyhow!("{e}"))?;
-            }
-        }
-        s.pinn = serde_json::from_str(cp.settings_json()).with_context(|| {
-            format!(
-                "{}: the checkpoint's settings are unreadable",
-                cp_path.display()
-            )
-        })?;
-        resume = Some(cp);
-    }
-    if let Some(d) = a.dim {
-        s.pinn.dim = d;
-    }
-    if let Some(v) = a.steps {
-        s.pinn.steps = v;
-    }
-    if let Some(v) = a.refine {
-        s.refine.iterations = v;
-    }
-    if let Some(v) = a.seed {
-        s.pinn.seed = v;
-    }
-    if let Some(v) = a.sigma_ms {
-        s.sigma_ms = v;
-    }
-    if let Some(v) = a.v_min {
-        s.pinn.v_min = v;
-    }
-    if let Some(v) = a.v_max {
-        s.pinn.v_max = v;
-    }
-    if let Some(r) = a.regulariser {
-        // both stages: the refinement's regulariser shapes the model that is reported
-        let kind = match r {
-            RegFlag::Smoothness => crate::pinn::Regulariser::Smoothness,
-            RegFlag::TotalVariation => crate::pinn::Regulariser::TotalVariation,
-            RegFlag::MinimumSupport => crate::pinn::Regulariser::MinimumSupport,
-        };
-        s.pinn.regulariser = kind;
-        s.refine.regulariser = kind;
-    }
-    if let Some(t) = a.threads {
-        s.pinn.threads = t;
-    }
-    Ok((s, resume, resume_refine))
-}
-
-/// `slowfield invert`.
-pub fn invert(a: &InvertArgs) -> anyhow::Result<ExitCode> {
-    let (settings, resume, resume_refine) = invert_settings(a)?;
-    settings.validate().map_err(|e| {
-        // the value came from a flag, the --config file or the resumed run's settings
-        let file = a
-            .config
-            .clone()
-            .or_else(|| a.resume.as_ref().map(|d| d.join("settings.toml")));
-        match file {
-            Some(f) => anyhow::anyhow!(
-                "invalid setting: {e} (settings from {} and the command line)",
-                f.display()
-            ),
-            None => anyhow::anyhow!("invalid setting: {e}"),
-        }
-    })?;
-    let survey = match load_survey(&a.picks, a.surface.as_deref()) {
-        Ok(s) => s,
-        Err(e) => {
-            return Ok(unusable(&e));
-        }
-    };
-    for w in &survey.warnings {
-        eprintln!("warning: {w}");
-    }
-    let job = invert::InvertJob {
-        picks_path: a.picks.clone(),
-        out: a.output.clone(),
-        settings,
-        resume,
-        resume_refine,
-        progress: invert::interactive(),
-    };
-    let report = invert::run(&survey, &job)?.report;
-    print!("{}", invert::summary_text(&report, &a.output));
-    Ok(ExitCode::SUCCESS)
-}
-
 /// Where the shipped demo picks live: `./demo-picks`, else beside the crate's sources.
 pub fn demo_dir() -> PathBuf {
     let here = PathBuf::from("demo-picks");
@@ -292,7 +217,7 @@ pub fn demo_dir() -> PathBuf {
 
 /// `slowfield demo`: check the shipped picks, invert them with the PINN (checked by
 /// fast marching), and hold the result against the site's true model.
-pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
+pub fn demo(a: &DemoRequest) -> anyhow::Result<ExitCode> {
     let dir = demo_dir();
     let picks = dir.join("picks.csv");
     let out = &a.output;
@@ -319,26 +244,25 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
     if let Some(steps) = a.steps {
         settings.pinn.steps = steps;
     }
-    let job = invert::InvertJob {
-        picks_path: picks.clone(),
-        out: pinn_dir.clone(),
-        settings,
-        resume: None,
-        resume_refine: None,
-        progress: invert::interactive(),
-    };
-    let inv = invert::run(&survey, &job)?;
-    print!("\n{}", invert::summary_text(&inv.report, &pinn_dir));
+    let inv = invert::run(
+        survey.clone(),
+        &picks,
+        &pinn_dir,
+        &settings,
+        inversion::Resume::default(),
+        invert::interactive(),
+    )?;
+    print!("\n{}", inv.report.summary_text(&pinn_dir));
     say("3/3 comparing with the site's true model (known only because the demo is synthetic)");
     let truth = crate::model::VelocityGrid::read(&dir.join("true-model.csv"))
         .map_err(|e| anyhow::anyhow!("{e}"))?;
-    let (est, covered) = (&inv.model, &inv.covered);
+    let (est, covered) = (&inv.inversion.model, &inv.inversion.coverage.covered);
     let err = crate::compare::against_truth(
         est,
         &truth,
         covered,
         &survey.surface,
-        job.settings.interface_mps,
+        settings.interface_mps,
     );
     let cmp = format!(
         "against the true model, ray-covered zone ({} nodes): median velocity error {:.1} %, 90th percentile {:.1} %\n\
@@ -346,7 +270,7 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
         err.nodes,
         err.median_pct,
         err.p90_pct,
-        job.settings.interface_mps,
+        settings.interface_mps,
         err.interface_columns,
         err.interface_mean_abs_m.map_or("-".into(), |v| format!("{v:.2} m")),
         err.interface_max_abs_m.map_or("-".into(), |v| format!("{v:.2} m")),
@@ -376,6 +300,6 @@ pub fn demo(a: &DemoArgs) -> anyhow::Result<ExitCode> {
         pinn_dir.join("report.html").display(),
         out.join("true-velocity.png").display()
     ));
-    println!("\n{}", invert::CAUTION);
+    println!("\n{}", crate::report::CAUTION);
     Ok(ExitCode::SUCCESS)
 }

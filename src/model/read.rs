@@ -1,246 +1,18 @@
-//! Velocity models on a regular 2-D grid of nodes.
-//!
-//! `x` runs along the profile, `z` is elevation (positive up). Node `(i, j)` sits at
-//! `x = x0 + i·dx`, `z = z0 + j·dz`, stored at index `j·nx + i` (row by row from the
-//! bottom). Nodes above the ground surface are *air*: they hold `NaN` velocity and carry
-//! no energy in any solver.
-
-/// Geometry of a regular node grid. Plain data, shared by every solver.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct GridSpec {
-    /// x of the first column, m.
-    pub x0: f64,
-    /// z (elevation) of the bottom row, m.
-    pub z0: f64,
-    /// Node spacing along x, m.
-    pub dx: f64,
-    /// Node spacing along z, m.
-    pub dz: f64,
-    /// Number of columns.
-    pub nx: usize,
-    /// Number of rows.
-    pub nz: usize,
-}
-
-impl GridSpec {
-    /// Number of nodes.
-    pub fn len(&self) -> usize {
-        self.nx * self.nz
-    }
-    /// True when the grid holds no node.
-    pub fn is_empty(&self) -> bool {
-        self.len() == 0
-    }
-    /// Linear index of node `(i, j)`.
-    #[inline]
-    pub fn idx(&self, i: usize, j: usize) -> usize {
-        j * self.nx + i
-    }
-    /// x of column `i`.
-    #[inline]
-    pub fn x(&self, i: usize) -> f64 {
-        self.x0 + i as f64 * self.dx
-    }
-    /// z of row `j`.
-    #[inline]
-    pub fn z(&self, j: usize) -> f64 {
-        self.z0 + j as f64 * self.dz
-    }
-    /// x of the last column.
-    pub fn x_max(&self) -> f64 {
-        self.x(self.nx.saturating_sub(1))
-    }
-    /// z of the top row.
-    pub fn z_max(&self) -> f64 {
-        self.z(self.nz.saturating_sub(1))
-    }
-    /// True when `(x, z)` lies inside the grid's rectangle (edges included, with a
-    /// tolerance of a millionth of a cell).
-    pub fn contains(&self, x: f64, z: f64) -> bool {
-        let ex = 1e-6 * self.dx;
-        let ez = 1e-6 * self.dz;
-        x >= self.x0 - ex && x <= self.x_max() + ex && z >= self.z0 - ez && z <= self.z_max() + ez
-    }
-}
+//! Reading model files: the plain fast path and the general CSV reader, one set of
+//! nodes and line numbers from either, every problem named by line and column.
 
 use std::path::Path;
 
-use crate::error::{read_text, InputError, InputErrors};
-use crate::survey::{header_map, number, records, Surface};
 use rayon::prelude::*;
+
+use super::{fmt_coord, GridSpec, VelocityGrid};
+use crate::error::{read_text, InputError, InputErrors};
+use crate::survey::{header_map, number, records};
 
 /// One node line of a model file: `(line, x, z, velocity)`.
 type NodeLine = (u64, f64, f64, f64);
 
-/// A velocity model: node velocities in m/s on a [`GridSpec`], `NaN` at air nodes.
-#[derive(Debug, Clone, PartialEq)]
-pub struct VelocityGrid {
-    /// Node geometry.
-    pub spec: GridSpec,
-    /// Velocity at each node, m/s; `NaN` marks air.
-    pub v: Vec<f64>,
-}
-
-/// The analytic ground models used by the tests and the demo.
-#[derive(Debug, Clone, PartialEq)]
-pub enum Analytic {
-    /// One velocity everywhere.
-    Constant {
-        /// m/s
-        v: f64,
-    },
-    /// `v = v0 + g·(z − z_ref)` (elevation z), the classic linear-gradient ground.
-    Gradient {
-        /// velocity at `z_ref`, m/s
-        v0: f64,
-        /// gradient dv/dz, 1/s (negative: faster downwards)
-        g: f64,
-        /// reference elevation, m
-        z_ref: f64,
-    },
-    /// Flat layers: `tops[k]` is the elevation of the top of layer `k + 1`, the first
-    /// layer runs from the surface down to `tops[0]`.
-    Layered {
-        /// velocity of each layer from the top, m/s
-        v: Vec<f64>,
-        /// elevation of each interface, from the top down, m
-        tops: Vec<f64>,
-    },
-}
-
-impl Analytic {
-    /// Velocity at elevation `z`, m/s.
-    pub fn velocity(&self, z: f64) -> f64 {
-        match self {
-            Analytic::Constant { v } => *v,
-            Analytic::Gradient { v0, g, z_ref } => v0 + g * (z - z_ref),
-            Analytic::Layered { v, tops } => {
-                let k = tops.iter().take_while(|&&t| z < t).count();
-                v[k.min(v.len() - 1)]
-            }
-        }
-    }
-}
-
 impl VelocityGrid {
-    /// Samples a velocity function onto `spec`; nodes above `surface` become air.
-    pub fn from_fn(
-        spec: GridSpec,
-        surface: Option<&Surface>,
-        f: impl Fn(f64, f64) -> f64,
-    ) -> VelocityGrid {
-        let mut v = vec![f64::NAN; spec.len()];
-        for j in 0..spec.nz {
-            for i in 0..spec.nx {
-                let (x, z) = (spec.x(i), spec.z(j));
-                let air = surface.is_some_and(|s| z > s.elevation(x) + 1e-9);
-                if !air {
-                    v[spec.idx(i, j)] = f(x, z);
-                }
-            }
-        }
-        VelocityGrid { spec, v }
-    }
-
-    /// Samples an analytic model onto `spec`.
-    pub fn analytic(spec: GridSpec, surface: Option<&Surface>, m: &Analytic) -> VelocityGrid {
-        VelocityGrid::from_fn(spec, surface, |_, z| m.velocity(z))
-    }
-
-    /// True when node `k` is air.
-    #[inline]
-    pub fn is_air(&self, k: usize) -> bool {
-        self.v[k].is_nan()
-    }
-
-    /// Node slownesses in s/m, `f64::INFINITY` at air nodes (the solvers' air marker).
-    pub fn slowness(&self) -> Vec<f64> {
-        self.v
-            .iter()
-            .map(|&v| if v.is_nan() { f64::INFINITY } else { 1.0 / v })
-            .collect()
-    }
-
-    /// Builds a model from node slownesses (non-finite entries become air).
-    pub fn from_slowness(spec: GridSpec, s: &[f64]) -> VelocityGrid {
-        let v = s
-            .iter()
-            .map(|&s| {
-                if s.is_finite() && s > 0.0 {
-                    1.0 / s
-                } else {
-                    f64::NAN
-                }
-            })
-            .collect();
-        VelocityGrid { spec, v }
-    }
-
-    /// Bilinear velocity at `(x, z)` from the non-air corners of its cell (weights
-    /// renormalised); `None` outside the grid or where all four corners are air.
-    pub fn sample(&self, x: f64, z: f64) -> Option<f64> {
-        let s = &self.spec;
-        if !s.contains(x, z) {
-            return None;
-        }
-        let fx = ((x - s.x0) / s.dx).clamp(0.0, (s.nx - 1) as f64);
-        let fz = ((z - s.z0) / s.dz).clamp(0.0, (s.nz - 1) as f64);
-        let i = (fx.floor() as usize).min(s.nx.saturating_sub(2));
-        let j = (fz.floor() as usize).min(s.nz.saturating_sub(2));
-        let (wx, wz) = (fx - i as f64, fz - j as f64);
-        let mut acc = 0.0;
-        let mut wsum = 0.0;
-        for (di, dj, w) in [
-            (0, 0, (1.0 - wx) * (1.0 - wz)),
-            (1, 0, wx * (1.0 - wz)),
-            (0, 1, (1.0 - wx) * wz),
-            (1, 1, wx * wz),
-        ] {
-            let (ii, jj) = ((i + di).min(s.nx - 1), (j + dj).min(s.nz - 1));
-            let v = self.v[s.idx(ii, jj)];
-            if !v.is_nan() && w > 0.0 {
-                acc += w * v;
-                wsum += w;
-            }
-        }
-        if wsum > 1e-12 {
-            Some(acc / wsum)
-        } else {
-            // on a node or edge whose weighted corners are air: take any non-air corner
-            let k = s.idx(
-                (fx.round() as usize).min(s.nx - 1),
-                (fz.round() as usize).min(s.nz - 1),
-            );
-            (!self.v[k].is_nan()).then_some(self.v[k])
-        }
-    }
-
-    /// Resamples this model onto another grid (bilinear; air where this model has none).
-    pub fn resample(&self, spec: GridSpec, surface: Option<&Surface>) -> VelocityGrid {
-        VelocityGrid::from_fn(spec, surface, |x, z| self.sample(x, z).unwrap_or(f64::NAN))
-    }
-
-    /// The model as `x,z,velocity_mps` CSV text, air nodes left out.
-    pub fn to_csv(&self) -> String {
-        let s = &self.spec;
-        let mut out = String::with_capacity(s.len() * 24);
-        out.push_str("x,z,velocity_mps\n");
-        for j in 0..s.nz {
-            for i in 0..s.nx {
-                let v = self.v[s.idx(i, j)];
-                if !v.is_nan() {
-                    out.push_str(&format!(
-                        "{},{},{:.2}\n",
-                        fmt_coord(s.x(i)),
-                        fmt_coord(s.z(j)),
-                        v
-                    ));
-                }
-            }
-        }
-        out
-    }
-
     /// Reads a model file (`x,z,velocity_mps`, one line per node, air nodes left out).
     pub fn read(path: &Path) -> Result<VelocityGrid, InputErrors> {
         let text = read_text(path, "velocity model")?;
@@ -381,30 +153,6 @@ impl VelocityGrid {
         }
         Ok(VelocityGrid { spec, v })
     }
-
-    /// The ground surface implied by the model: the top non-air node of each column.
-    pub fn surface(&self) -> Surface {
-        let s = &self.spec;
-        let pts: Vec<crate::survey::Point> = (0..s.nx)
-            .filter_map(|i| {
-                (0..s.nz)
-                    .rev()
-                    .find(|&j| !self.v[s.idx(i, j)].is_nan())
-                    .map(|j| crate::survey::Point::new(s.x(i), s.z(j)))
-            })
-            .collect();
-        Surface::through(&pts)
-    }
-
-    /// Smallest and largest velocity below the ground, m/s.
-    pub fn range(&self) -> (f64, f64) {
-        self.v
-            .iter()
-            .filter(|v| !v.is_nan())
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
-                (a.min(v), b.max(v))
-            })
-    }
 }
 
 /// The node lines of a model file in the plain form files written by programs have —
@@ -482,17 +230,6 @@ fn plain_piece(text: &str, (ix, iz, iv): (usize, usize, usize)) -> Option<(Vec<N
     Some((nodes, lines))
 }
 
-/// Coordinates print with up to 4 decimals and no trailing zeros.
-fn fmt_coord(v: f64) -> String {
-    let s = format!("{v:.4}");
-    let s = s.trim_end_matches('0').trim_end_matches('.');
-    if s == "-0" {
-        "0".into()
-    } else {
-        s.into()
-    }
-}
-
 /// Infers a regular axis (origin, spacing, count) from the distinct values of one
 /// coordinate, naming the value that breaks the pattern.
 fn axis(
@@ -546,6 +283,8 @@ fn axis(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::model::Analytic;
+    use crate::survey::Surface;
 
     fn spec() -> GridSpec {
         GridSpec {
@@ -626,13 +365,5 @@ mod tests {
         ] {
             assert!(plain_nodes(p, text).is_none(), "{text:?}");
         }
-    }
-
-    #[test]
-    fn bilinear_sampling_is_exact_for_linear_fields() {
-        let m = VelocityGrid::from_fn(spec(), None, |x, z| 300.0 + 7.0 * x - 20.0 * z);
-        let v = m.sample(3.3, -4.2).unwrap();
-        assert!((v - (300.0 + 7.0 * 3.3 + 20.0 * 4.2)).abs() < 1e-9);
-        assert!(m.sample(20.0, 0.0).is_none());
     }
 }

@@ -1,0 +1,364 @@
+//! The inversion layer: every method takes the same [`Problem`] and returns the same
+//! [`Inversion`], judged by the same code on the same grid.
+//!
+//! [`run`] dispatches on the method in the settings, then judges the model it got: fast
+//! marching through it on a grid of *half* the inversion's cell (so the reported misfit
+//! is not the quantity any method minimised on its own grid), the same on the
+//! inversion grid beside it, and the ray coverage of the final model. Nothing here
+//! reads or writes files or talks to a terminal: progress goes to one [`Observer`],
+//! and the jobs write the result.
+
+mod pinn;
+
+use std::time::Instant;
+
+use serde::Serialize;
+
+use crate::eikonal::{self, FmmOptions, RayOptions};
+use crate::linearised::{OuterLog, OuterState, OuterStop};
+use crate::model::{GridSpec, VelocityGrid};
+use crate::pinn::{Checkpoint, StepLog};
+use crate::settings::{Method, RunSettings};
+use crate::start::{fit_linear, StartFit};
+use crate::survey::Survey;
+use crate::verify::{self, Misfit, VerifyError};
+
+/// What every method is given: the picks with their σ, the domain and its grid, the
+/// starting model, and the judge's grid.
+#[derive(Debug, Clone)]
+pub struct Problem {
+    /// The picks, shots and ground surface.
+    pub survey: Survey,
+    /// Standard uncertainty of every pick (its own or the run's default), s.
+    pub sigma_s: Vec<f64>,
+    /// The 1-D starting model fitted to the picks.
+    pub start: StartFit,
+    /// Depth of the model below the lowest station, m.
+    pub depth_m: f64,
+    /// The inversion grid (also the output grid).
+    pub grid: GridSpec,
+    /// Its cell, m.
+    pub cell_m: f64,
+    /// The judge's cell: half the inversion's, m.
+    pub judge_cell_m: f64,
+}
+
+impl Problem {
+    /// The problem of `survey` under `settings`: model depth from the start model's
+    /// deepest turning ray (× 1.5 + 3 m, at least 10 m) unless set, the inversion cell
+    /// from the receiver spacing unless set, the judge at half that cell.
+    pub fn new(survey: Survey, settings: &RunSettings) -> Problem {
+        let default_sigma = settings.sigma_ms * 1e-3;
+        let sigma_s = survey
+            .picks
+            .iter()
+            .map(|p| p.sigma_or(default_sigma))
+            .collect();
+        let start = fit_linear(&survey, default_sigma);
+        let depth_m = settings
+            .depth_m
+            .unwrap_or_else(|| (1.5 * start.deepest_turning_m + 3.0).max(10.0).ceil());
+        let cell_m = settings
+            .cell_m
+            .unwrap_or_else(|| verify::default_cell(0.5, &survey));
+        let (x0, x1) = survey.x_range();
+        let zlow = survey
+            .stations()
+            .iter()
+            .map(|p| p.z)
+            .fold(f64::INFINITY, f64::min);
+        let grid = GridSpec::covering(x0, x1, zlow - depth_m, survey.surface.highest(), cell_m);
+        Problem {
+            survey,
+            sigma_s,
+            start,
+            depth_m,
+            grid,
+            cell_m,
+            judge_cell_m: 0.5 * cell_m,
+        }
+    }
+
+    /// Misfit of `times` (s, one per pick) to the picks.
+    pub fn misfit(&self, times: &[f64]) -> Misfit {
+        verify::misfit(&self.survey, times, &self.sigma_s)
+    }
+}
+
+/// Progress of a running inversion, as the observer sees it.
+#[derive(Debug)]
+pub enum Event<'a> {
+    /// A stage begins; `length` is its number of steps or iterations at most.
+    Stage {
+        /// What the stage does.
+        name: &'static str,
+        /// Steps or iterations at most.
+        length: usize,
+    },
+    /// A training step of a network.
+    Step(&'a StepLog),
+    /// A checkpoint of the training (write it to make the run resumable).
+    Checkpoint(&'a Checkpoint),
+    /// An outer iteration (one forward solve) of a linearised stage.
+    Outer(&'a OuterLog),
+    /// The state of a linearised stage at the start of an iteration (write it to make
+    /// the stage resumable).
+    OuterState(&'a OuterState),
+    /// The judge is at work.
+    Judging,
+}
+
+/// Receives progress; called on the thread that runs the inversion.
+pub trait Observer: Send {
+    /// One event.
+    fn on(&mut self, event: Event<'_>);
+}
+
+/// An observer that ignores everything.
+pub struct Silent;
+impl Observer for Silent {
+    fn on(&mut self, _: Event<'_>) {}
+}
+
+/// Where a resumed run continues from.
+#[derive(Debug, Clone, Default)]
+pub struct Resume {
+    /// The training checkpoint.
+    pub checkpoint: Option<Checkpoint>,
+    /// The linearised stage's state.
+    pub outer: Option<OuterState>,
+}
+
+/// The judge's verdict on a model.
+#[derive(Debug, Clone, Serialize)]
+pub struct Judgement {
+    /// Cell of the judge's grid, m (half the inversion's).
+    pub cell_m: f64,
+    /// Misfit of fast-marching times on the judge's grid: the one that counts.
+    pub misfit: Misfit,
+    /// Misfit of fast-marching times on the inversion grid (what a method that fits
+    /// fast-marching times minimised).
+    pub inversion_grid: Misfit,
+    /// The judge's time of every pick, s.
+    #[serde(skip)]
+    pub times: Vec<f64>,
+}
+
+/// Which part of the section the rays of the final model reach.
+#[derive(Debug, Clone, Serialize)]
+pub struct Coverage {
+    /// Per node of the model: a ray passes within one cell.
+    #[serde(skip)]
+    pub covered: Vec<bool>,
+    /// Share of the ground nodes covered.
+    pub fraction: f64,
+    /// Rays that could not be traced (left out of the coverage).
+    pub failed_rays: usize,
+}
+
+/// One stage's course.
+#[derive(Debug, Clone, Serialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum History {
+    /// Network training, every step.
+    Training {
+        /// Every step's log.
+        steps: Vec<StepLog>,
+    },
+    /// A linearised stage against fast marching, every outer iteration.
+    Linearised {
+        /// Every iteration's log.
+        iterations: Vec<OuterLog>,
+        /// The iteration whose model was kept.
+        kept: usize,
+        /// Why it ended.
+        stop: OuterStop,
+        /// The iteration a resumed stage continued with.
+        resumed_from: Option<usize>,
+    },
+}
+
+/// One stage of a method.
+#[derive(Debug, Clone, Serialize)]
+pub struct Stage {
+    /// What the stage did.
+    pub name: String,
+    /// Wall-clock seconds.
+    pub seconds: f64,
+    /// Its course.
+    pub history: History,
+}
+
+/// The method's own prediction of the picks, where it has one (the PINN's travel-time
+/// network).
+#[derive(Debug, Clone, Serialize)]
+pub struct OwnFit {
+    /// What made the times.
+    pub source: String,
+    /// Their misfit.
+    pub misfit: Misfit,
+    /// The times, s.
+    #[serde(skip)]
+    pub times: Vec<f64>,
+}
+
+/// What only the PINN has.
+#[derive(Debug, Clone, Serialize)]
+pub struct PinnDetail {
+    /// Training steps done (resumed runs included).
+    pub steps: usize,
+    /// Why training stopped.
+    pub stop: String,
+    /// RMS of the eikonal residual `v·|∇T| − 1` of the trained networks.
+    pub eikonal_rms: f64,
+    /// Velocity dimension (1: v(depth), 2: v(x, z)).
+    pub dim: u8,
+}
+
+/// The method-specific part of a result.
+#[derive(Debug, Clone, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum MethodDetail {
+    /// The PINN.
+    Pinn(PinnDetail),
+}
+
+/// The result of any method.
+#[derive(Debug, Clone)]
+pub struct Inversion {
+    /// The method.
+    pub method: Method,
+    /// A one-line description of what ran (e.g. "pinn + refinement against fast marching").
+    pub label: String,
+    /// The velocity model on the inversion grid, air `NaN`.
+    pub model: VelocityGrid,
+    /// The judge's verdict.
+    pub judge: Judgement,
+    /// The method's own fit, where it has one.
+    pub own_fit: Option<OwnFit>,
+    /// Every stage in order.
+    pub stages: Vec<Stage>,
+    /// Ray coverage of the final model.
+    pub coverage: Coverage,
+    /// What only this method has.
+    pub detail: MethodDetail,
+    /// Things the user should know (a diverged training, a state that was not used).
+    pub notes: Vec<String>,
+    /// Wall-clock seconds of the whole inversion, the judge included.
+    pub seconds: f64,
+}
+
+/// Why an inversion could not be done.
+#[derive(Debug, thiserror::Error)]
+pub enum InversionError {
+    /// A setting is out of range; the message says what to do.
+    #[error("invalid setting: {0}")]
+    Setting(String),
+    /// A pick the method refused.
+    #[error("pick {index}: {problem}")]
+    Pick {
+        /// Its index in the survey.
+        index: usize,
+        /// What is wrong.
+        problem: String,
+    },
+    /// The method failed; the message says why and what to do.
+    #[error("{0}")]
+    Method(String),
+    /// The judge could not solve the model.
+    #[error("checking the model by fast marching: {0}")]
+    Judge(#[from] VerifyError),
+}
+
+/// Runs the method in `settings` on `problem`, then judges the model.
+pub fn run(
+    problem: &Problem,
+    settings: &RunSettings,
+    resume: Resume,
+    observer: &mut dyn Observer,
+) -> Result<Inversion, InversionError> {
+    let t0 = Instant::now();
+    settings.validate().map_err(InversionError::Setting)?;
+    let fitted = match settings.method {
+        Method::Pinn => pinn::run(problem, settings, resume, observer)?,
+    };
+    observer.on(Event::Judging);
+    let judge = judge(problem, &fitted.model)?;
+    let coverage = coverage(problem, &fitted.model)?;
+    Ok(Inversion {
+        method: settings.method,
+        label: fitted.label,
+        model: fitted.model,
+        judge,
+        own_fit: fitted.own_fit,
+        stages: fitted.stages,
+        coverage,
+        detail: fitted.detail,
+        notes: fitted.notes,
+        seconds: t0.elapsed().as_secs_f64(),
+    })
+}
+
+/// What a method hands back before the judge.
+struct Fitted {
+    label: String,
+    model: VelocityGrid,
+    own_fit: Option<OwnFit>,
+    stages: Vec<Stage>,
+    detail: MethodDetail,
+    notes: Vec<String>,
+}
+
+/// The judge: fast marching through `model` on a grid of half the inversion's cell
+/// (sampled in slowness) and on the inversion grid.
+pub fn judge(problem: &Problem, model: &VelocityGrid) -> Result<Judgement, VerifyError> {
+    let opts = FmmOptions::default();
+    let fine = verify::solver_grid(model, &problem.survey.surface, problem.judge_cell_m)?;
+    let times = verify::predict(&problem.survey, &fine, &opts)?;
+    // the model's own grid is the inversion grid: solved as it is
+    let coarse = verify::predict(&problem.survey, model, &opts)?;
+    Ok(Judgement {
+        cell_m: problem.judge_cell_m,
+        misfit: problem.misfit(&times),
+        inversion_grid: problem.misfit(&coarse),
+        times,
+    })
+}
+
+/// Nodes of `model` that a ray of the fast-marching solution through it passes within
+/// one cell of (rays between neighbouring receivers skim the surface and would leave it
+/// speckled otherwise); rays that cannot be traced are left out and counted.
+pub fn coverage(problem: &Problem, model: &VelocityGrid) -> Result<Coverage, VerifyError> {
+    let (sources, receivers) = problem.survey.shot_geometry();
+    let ray_opts = RayOptions::default();
+    let rays = eikonal::map_shots(
+        &model.spec,
+        &model.slowness(),
+        &sources,
+        &receivers,
+        &FmmOptions::default(),
+        |f, r| eikonal::trace_ray(f, r, &ray_opts).ok(),
+    )?;
+    let failed_rays = rays.iter().flatten().filter(|r| r.is_none()).count();
+    let total = eikonal::node_coverage(&model.spec, rays.iter().flatten().flatten());
+    let sp = &model.spec;
+    let hit: Vec<bool> = total.iter().map(|&c| c > 0.0).collect();
+    let mut covered = vec![false; sp.len()];
+    for j in 0..sp.nz {
+        for i in 0..sp.nx {
+            let k = sp.idx(i, j);
+            if model.is_air(k) {
+                continue;
+            }
+            covered[k] = (j.saturating_sub(1)..(j + 2).min(sp.nz))
+                .any(|jj| (i.saturating_sub(1)..(i + 2).min(sp.nx)).any(|ii| hit[sp.idx(ii, jj)]));
+        }
+    }
+    let ground = (0..sp.len()).filter(|&k| !model.is_air(k)).count();
+    let fraction = covered.iter().filter(|&&c| c).count() as f64 / ground.max(1) as f64;
+    Ok(Coverage {
+        covered,
+        fraction,
+        failed_rays,
+    })
+}

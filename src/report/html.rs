@@ -1,0 +1,118 @@
+//! The plain HTML page of a run, next to its figures.
+
+use super::InvertReport;
+use crate::inversion::MethodDetail;
+
+fn escape(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+}
+
+/// The page of a run: cautions, a summary table, the figures.
+pub fn html_report(r: &InvertReport) -> String {
+    let row =
+        |k: &str, v: String| format!("<tr><th>{}</th><td>{}</td></tr>\n", escape(k), escape(&v));
+    let mut t = String::new();
+    t += &row("picks file", r.picks.clone());
+    t += &row("shots / picks", format!("{} / {}", r.n_shots, r.n_picks));
+    t += &row("method", r.label.clone());
+    t += &row(
+        &format!(
+            "fast-marching check on a {} m grid (half the inversion's): RMS, χ²",
+            r.judge.cell_m
+        ),
+        format!(
+            "{:.3} ms, {:.3}",
+            r.judge.misfit.rms_ms, r.judge.misfit.chi2
+        ),
+    );
+    t += &row(
+        &format!(
+            "fast marching on the inversion's own {} m grid: RMS, χ²",
+            r.problem.cell_m
+        ),
+        format!(
+            "{:.3} ms, {:.3}",
+            r.judge.inversion_grid.rms_ms, r.judge.inversion_grid.chi2
+        ),
+    );
+    if let Some(o) = &r.own_fit {
+        t += &row(
+            &format!("{}: RMS, χ²", o.source),
+            format!("{:.3} ms, {:.3}", o.misfit.rms_ms, o.misfit.chi2),
+        );
+    }
+    match &r.detail {
+        MethodDetail::Pinn(p) => {
+            t += &row("eikonal residual RMS", format!("{:.4}", p.eikonal_rms));
+            t += &row("training steps, stop", format!("{} ({})", p.steps, p.stop));
+        }
+    }
+    if let Some(f) = &r.refinement {
+        t += &row(
+            "fast-marching χ² on the inversion grid: PINN velocity → refined",
+            format!(
+                "{:.3} → {:.3} ({} refinement iterations, iteration {} kept)",
+                f.pinn_chi2, f.refined_chi2, f.iterations, f.kept
+            ),
+        );
+    }
+    let st = &r.problem.start;
+    t += &row(
+        "starting model",
+        format!(
+            "v = {:.0} m/s + {:.1}/s × depth (RMS {:.2} ms)",
+            st.model.v0,
+            st.model.g,
+            st.rms_s * 1e3
+        ),
+    );
+    t += &row(
+        "model depth / grid cell",
+        format!("{:.1} m / {} m", r.problem.depth_m, r.problem.cell_m),
+    );
+    t += &row(
+        "ray-covered share of the section",
+        format!("{:.0} %", 100.0 * r.coverage.fraction),
+    );
+    t += &row(
+        "seed / run time",
+        format!("{} / {:.1} s", r.seed, r.run_seconds),
+    );
+    let list = |title: &str, items: &[String]| {
+        if items.is_empty() {
+            String::new()
+        } else {
+            format!(
+                "<h2>{title}</h2><ul>{}</ul>",
+                items
+                    .iter()
+                    .map(|w| format!("<li>{}</li>", escape(w)))
+                    .collect::<String>()
+            )
+        }
+    };
+    format!(
+        "<!doctype html><html><head><meta charset=\"utf-8\"><title>slowfield inversion</title>\
+<style>body{{font-family:sans-serif;max-width:1450px;margin:1em auto;color:#222}}th{{text-align:left;padding-right:1.5em}}\
+.caution{{border:2px solid #b33;padding:.6em 1em;background:#fff4f4}}img{{max-width:100%}}</style></head><body>\
+<h1>Velocity section from first-arrival picks</h1>\
+<p class=\"caution\"><b>Caution.</b> {}</p><table>{}</table>{}{}\
+<h2>Velocity section</h2><img src=\"velocity.png\" alt=\"velocity section\">\
+<p>Depth to {:.0} m/s where the rays reach it: <code>interface-depth.csv</code>.</p>\
+<h2>Travel times</h2><img src=\"traveltimes.png\" alt=\"travel-time curves\">\
+<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">{}\
+<p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin, refine.bin.</p></body></html>\n",
+        escape(r.caution),
+        t,
+        list("Warnings", &r.warnings),
+        list("Notes", &r.notes),
+        r.iso_depth.velocity_mps,
+        if r.refinement.is_some() {
+            "<h2>Refinement</h2><img src=\"refinement.png\" alt=\"refinement chi-square\">"
+        } else {
+            ""
+        }
+    )
+}

@@ -1,0 +1,185 @@
+//! The shared outer loop and linearisation (`slowfield::linearised`) on small problems
+//! whose answers are known: sparse products against dense arithmetic, the linearised
+//! χ²'s gradient against central differences, step control on an inner solve that
+//! overshoots, and a bit-exact resume from a saved state.
+
+use slowfield::linearised::{
+    chi2_of, run, ForwardModel, InnerProblem, Jacobian, Linearisation, OuterLog, OuterObserver,
+    OuterSettings, OuterState, Quiet,
+};
+
+/// Two picks through two unknowns with a nonlinear true misfit, to watch the loop.
+struct Toy;
+impl ForwardModel for Toy {
+    fn linearise(&mut self, v: &[f64]) -> Result<Linearisation, String> {
+        // times t_i = s_i + 0.5·s_i³ (s = 1/v), observed 1.5 each (s = 1)
+        let s: Vec<f64> = v.iter().map(|v| 1.0 / v).collect();
+        Ok(Linearisation {
+            residual_s: s.iter().map(|s| 1.5 - (s + 0.5 * s.powi(3))).collect(),
+            sigma_s: vec![0.1; 2],
+            jacobian: Jacobian::from_rows(
+                &[
+                    vec![(0, 1.0 + 1.5 * s[0] * s[0])],
+                    vec![(1, 1.0 + 1.5 * s[1] * s[1])],
+                ],
+                2,
+            ),
+        })
+    }
+}
+/// Parameters are slownesses; the inner solve overshoots by `gain` × Newton step.
+struct Overshoot {
+    gain: f64,
+}
+impl InnerProblem for Overshoot {
+    fn velocity(&self, p: &[f64]) -> (Vec<f64>, f64) {
+        (p.iter().map(|s| 1.0 / s).collect(), 0.0)
+    }
+    fn solve(&mut self, p: &[f64], _v: &[f64], lin: Linearisation) -> (Vec<f64>, f64) {
+        let ds: Vec<f64> = (0..2)
+            .map(|i| {
+                let (_, w) = lin.jacobian.row(i).next().unwrap();
+                self.gain * lin.residual_s[i] / w
+            })
+            .collect();
+        let predicted = chi2_of(&lin.predicted_residual(&ds), &lin.sigma_s);
+        (p.iter().zip(&ds).map(|(a, b)| a + b).collect(), predicted)
+    }
+}
+
+#[test]
+fn jacobian_products_agree_with_dense_arithmetic() {
+    let j = Jacobian::from_rows(&[vec![(0, 2.0), (2, 1.0)], vec![], vec![(1, -3.0)]], 3);
+    assert_eq!(j.apply(&[1.0, 2.0, 3.0]), vec![5.0, 0.0, -6.0]);
+    assert_eq!(j.apply_transpose(&[1.0, 5.0, 2.0]), vec![2.0, -6.0, 1.0]);
+    let r = j.remap(&[usize::MAX, 0, 1], 2);
+    assert_eq!(r.apply(&[1.0, 1.0]), vec![1.0, 0.0, -3.0]);
+}
+
+/// The linearised χ²'s gradient against central differences.
+#[test]
+fn chi2_gradient_matches_differences() {
+    let lin = Linearisation {
+        residual_s: vec![0.3, -0.2, 0.05],
+        sigma_s: vec![0.1, 0.2, 0.05],
+        jacobian: Jacobian::from_rows(
+            &[vec![(0, 2.0), (1, 0.5)], vec![(1, 1.0)], vec![(0, -1.0)]],
+            2,
+        ),
+    };
+    let ds = [0.01, -0.02];
+    let (_, g) = lin.chi2_and_gradient(&ds);
+    for k in 0..2 {
+        let h = 1e-6;
+        let mut a = ds;
+        let mut b = ds;
+        a[k] += h;
+        b[k] -= h;
+        let fd = (lin.chi2_and_gradient(&a).0 - lin.chi2_and_gradient(&b).0) / (2.0 * h);
+        assert!(
+            (fd - g[k]).abs() < 1e-6 * fd.abs().max(1.0),
+            "{k}: {fd} {}",
+            g[k]
+        );
+    }
+}
+
+/// An inner solve that overshoots threefold makes the true χ² rise; the loop must
+/// shorten the step from the best iterate rather than accept it, so the accepted χ²
+/// never rises and the best iterate keeps improving.
+#[test]
+fn a_too_long_step_is_shortened_not_accepted() {
+    let settings = OuterSettings {
+        iterations: 12,
+        chi2_target: 1e-6,
+        max_shortenings: 4,
+    };
+    let out = run(
+        &mut Overshoot { gain: 3.0 },
+        &mut Toy,
+        vec![0.6, 1.3],
+        &settings,
+        1,
+        None,
+        &mut Quiet,
+    )
+    .unwrap();
+    let h = &out.history;
+    // the first full step overshoots: its χ² rises and it is rejected
+    assert!(h[1].chi2 > h[0].chi2 && !h[1].accepted, "{h:?}");
+    assert_eq!(h[1].step, 1.0);
+    // the next try is the halved step from the same best iterate
+    assert_eq!(h[2].step, 0.5);
+    let accepted: Vec<f64> = h.iter().filter(|l| l.accepted).map(|l| l.chi2).collect();
+    assert!(accepted.windows(2).all(|w| w[1] < w[0]), "{accepted:?}");
+    assert!(out.chi2_after() < 0.05 * out.chi2_before(), "{h:?}");
+    assert_eq!(out.chi2_after(), *accepted.last().unwrap());
+    // without step control the same inner solve would have kept the rising iterate
+    // as its next start: the true χ² after the first step is what it would carry
+    assert!(h[1].chi2 > out.chi2_before());
+}
+
+#[test]
+fn state_round_trip_and_bit_exact_resume() {
+    let settings = OuterSettings {
+        iterations: 6,
+        chi2_target: 1e-9,
+        max_shortenings: 4,
+    };
+    struct Keep(Vec<OuterState>);
+    impl OuterObserver for Keep {
+        fn on_state(&mut self, s: &OuterState) {
+            self.0.push(OuterState::from_bytes(&s.to_bytes()).unwrap());
+        }
+    }
+    let mut keep = Keep(Vec::new());
+    let whole = run(
+        &mut Overshoot { gain: 3.0 },
+        &mut Toy,
+        vec![0.6, 1.3],
+        &settings,
+        7,
+        None,
+        &mut keep,
+    )
+    .unwrap();
+    let mid = &keep.0[3];
+    // NaN predictions make `==` useless here: compare the bytes
+    assert_eq!(
+        mid.to_bytes(),
+        OuterState::from_bytes(&mid.to_bytes()).unwrap().to_bytes()
+    );
+    let resumed = run(
+        &mut Overshoot { gain: 3.0 },
+        &mut Toy,
+        vec![0.6, 1.3],
+        &settings,
+        7,
+        Some(mid),
+        &mut Quiet,
+    )
+    .unwrap();
+    assert_eq!(resumed.resumed_from, Some(3));
+    assert_eq!(resumed.params, whole.params);
+    let bits = |h: &[OuterLog]| {
+        h.iter()
+            .map(|l| (l.iteration, l.chi2.to_bits(), l.step.to_bits(), l.accepted))
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(bits(&resumed.history), bits(&whole.history));
+    // another fingerprint starts afresh
+    let other = run(
+        &mut Overshoot { gain: 3.0 },
+        &mut Toy,
+        vec![0.6, 1.3],
+        &settings,
+        8,
+        Some(mid),
+        &mut Quiet,
+    )
+    .unwrap();
+    assert_eq!(other.resumed_from, None);
+    let mut bytes = mid.to_bytes();
+    bytes.truncate(bytes.len() - 3);
+    assert!(OuterState::from_bytes(&bytes).is_err());
+}
