@@ -1,7 +1,29 @@
 //! slowfield: seismic first-arrival picks to a velocity section of the shallow ground.
 //!
 //! The library holds one module per concern; the `slowfield` binary only parses the
-//! command line and calls [`cli::run`].
+//! command line ([`cli`]) and hands plain requests to the [`jobs`]. Every inversion
+//! method takes an [`inversion::Problem`] and returns an [`inversion::Inversion`],
+//! judged by fast marching on a grid of half the inversion's cell.
+//!
+//! # Conventions
+//!
+//! - **Units**: SI inside the code (metres, seconds, metres per second); files use
+//!   metres and milliseconds, and every column name carries its unit.
+//! - **Coordinates**: `x` runs along the profile; `z` is *elevation*, positive up.
+//!   Depth (ground elevation minus `z`) is derived and only ever shown, never stored as
+//!   a coordinate. Grid node `(i, j)` sits at `x0 + i·dx`, `z0 + j·dz`, index `j·nx + i`.
+//! - **Air**: a [`model::VelocityGrid`] holds `NaN` at nodes above the ground; solvers
+//!   take slowness with `+∞` there. Air carries no energy.
+//! - **Slowness sampling**: a model is sampled onto any solver grid bilinearly in
+//!   slowness `s = 1/v` (travel time is linear in slowness).
+//! - **σ**: the standard uncertainty of a pick, s; a pick without its own takes the
+//!   run's `sigma_ms`. χ² is the mean of `(r/σ)²` over the picks (reduced, ≈ 1 when the
+//!   model explains the picks to their uncertainty).
+//! - **Residual**: observed − predicted, everywhere (files, reports, the linearised
+//!   misfit).
+//! - **Eikonal**: `|∇T| = s`, `T = 0` at the source.
+//! - **Randomness**: every random choice takes a seed; the same seed and inputs give
+//!   the same result, whatever the thread count.
 //!
 //! ```
 //! use slowfield::analytic::{crossover_distance, intercept_time};

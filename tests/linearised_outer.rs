@@ -47,6 +47,25 @@ impl InnerProblem for Overshoot {
     }
 }
 
+/// The toy problem from (0.6, 1.3) with a threefold overshooting inner solve.
+fn overshooting(
+    settings: &OuterSettings,
+    fingerprint: u64,
+    resume: Option<&OuterState>,
+    observer: &mut dyn OuterObserver,
+) -> slowfield::linearised::OuterOutcome {
+    run(
+        &mut Overshoot { gain: 3.0 },
+        &mut Toy,
+        vec![0.6, 1.3],
+        settings,
+        fingerprint,
+        resume,
+        observer,
+    )
+    .unwrap()
+}
+
 #[test]
 fn jacobian_products_agree_with_dense_arithmetic() {
     let j = Jacobian::from_rows(&[vec![(0, 2.0), (2, 1.0)], vec![], vec![(1, -3.0)]], 3);
@@ -94,16 +113,7 @@ fn a_too_long_step_is_shortened_not_accepted() {
         chi2_target: 1e-6,
         max_shortenings: 4,
     };
-    let out = run(
-        &mut Overshoot { gain: 3.0 },
-        &mut Toy,
-        vec![0.6, 1.3],
-        &settings,
-        1,
-        None,
-        &mut Quiet,
-    )
-    .unwrap();
+    let out = overshooting(&settings, 1, None, &mut Quiet);
     let h = &out.history;
     // the first full step overshoots: its χ² rises and it is rejected
     assert!(h[1].chi2 > h[0].chi2 && !h[1].accepted, "{h:?}");
@@ -133,32 +143,14 @@ fn state_round_trip_and_bit_exact_resume() {
         }
     }
     let mut keep = Keep(Vec::new());
-    let whole = run(
-        &mut Overshoot { gain: 3.0 },
-        &mut Toy,
-        vec![0.6, 1.3],
-        &settings,
-        7,
-        None,
-        &mut keep,
-    )
-    .unwrap();
+    let whole = overshooting(&settings, 7, None, &mut keep);
     let mid = &keep.0[3];
     // NaN predictions make `==` useless here: compare the bytes
     assert_eq!(
         mid.to_bytes(),
         OuterState::from_bytes(&mid.to_bytes()).unwrap().to_bytes()
     );
-    let resumed = run(
-        &mut Overshoot { gain: 3.0 },
-        &mut Toy,
-        vec![0.6, 1.3],
-        &settings,
-        7,
-        Some(mid),
-        &mut Quiet,
-    )
-    .unwrap();
+    let resumed = overshooting(&settings, 7, Some(mid), &mut Quiet);
     assert_eq!(resumed.resumed_from, Some(3));
     assert_eq!(resumed.params, whole.params);
     let bits = |h: &[OuterLog]| {
@@ -168,16 +160,7 @@ fn state_round_trip_and_bit_exact_resume() {
     };
     assert_eq!(bits(&resumed.history), bits(&whole.history));
     // another fingerprint starts afresh
-    let other = run(
-        &mut Overshoot { gain: 3.0 },
-        &mut Toy,
-        vec![0.6, 1.3],
-        &settings,
-        8,
-        Some(mid),
-        &mut Quiet,
-    )
-    .unwrap();
+    let other = overshooting(&settings, 8, Some(mid), &mut Quiet);
     assert_eq!(other.resumed_from, None);
     let mut bytes = mid.to_bytes();
     bytes.truncate(bytes.len() - 3);

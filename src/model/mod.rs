@@ -373,10 +373,11 @@ fn fmt_coord(v: f64) -> String {
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
 
-    fn spec() -> GridSpec {
+    /// A 10 m × 10 m grid, 1 m by 0.5 m.
+    pub(crate) fn spec() -> GridSpec {
         GridSpec {
             x0: 0.0,
             z0: -10.0,

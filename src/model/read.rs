@@ -283,19 +283,9 @@ fn axis(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::model::tests::spec;
     use crate::model::Analytic;
     use crate::survey::Surface;
-
-    fn spec() -> GridSpec {
-        GridSpec {
-            x0: 0.0,
-            z0: -10.0,
-            dx: 1.0,
-            dz: 0.5,
-            nx: 11,
-            nz: 21,
-        }
-    }
 
     #[test]
     fn csv_round_trip_keeps_air_and_values() {
