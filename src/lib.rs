@@ -40,6 +40,7 @@ pub mod error;
 pub mod figures;
 pub mod inversion;
 pub mod jobs;
+pub mod limits;
 pub mod linearised;
 pub mod model;
 pub mod output;
