@@ -71,7 +71,15 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
         None => RunSettings::default(),
     };
     let mut resume = Resume::default();
-    if let Some(dir) = &req.resume {
+    if let Some(given) = &req.resume {
+        // an interrupted run keeps its states in the work folder beside the output
+        // folder; a finished run, in the output folder itself
+        let work = work_dir(given)?;
+        let dir = if work.join(CHECKPOINT).exists() {
+            &work
+        } else {
+            given
+        };
         let rs_path = dir.join(REFINE_STATE);
         if rs_path.exists() {
             let bytes = std::fs::read(&rs_path)
@@ -143,20 +151,54 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
     Ok((s, resume))
 }
 
-/// Progress bar, checkpoint and refinement-state writer.
+/// The folder a run works in until it is complete: `.NAME.running` beside the output
+/// folder `NAME`. The run's settings, checkpoint and refinement state are saved there
+/// as it goes; its outputs are written there at the end, and the whole folder then
+/// replaces the output folder, so a finished folder always comes from one run and an
+/// interrupted run loses nothing (`--resume NAME` finds its states there).
+pub fn work_dir(out: &Path) -> anyhow::Result<PathBuf> {
+    let name = out
+        .file_name()
+        .filter(|n| !n.is_empty() && *n != "." && *n != "..")
+        .ok_or_else(|| {
+            anyhow::anyhow!(
+                "the output folder {} has no name of its own: give a named folder, e.g. -o results",
+                out.display()
+            )
+        })?;
+    Ok(out.with_file_name(format!(".{}.running", name.to_string_lossy())))
+}
+
+/// Progress bar and writer of the run's states (settings at the start, checkpoint,
+/// refinement state) into the work folder.
 struct Watch {
     bar: Option<indicatif::ProgressBar>,
-    out: PathBuf,
+    work: PathBuf,
+    settings_toml: Option<String>,
     error: Option<String>,
     last_chi2: Option<f64>,
 }
 
 impl Watch {
+    /// Makes the work folder and saves the settings in it, once. Called at the first
+    /// stage, after the layer has checked the settings, so a refused run leaves at
+    /// most a folder without a checkpoint, which is removed.
+    fn start(&mut self) {
+        if let Some(text) = self.settings_toml.take() {
+            if let Err(e) = std::fs::create_dir_all(&self.work) {
+                self.error = Some(format!("cannot create {}: {e}", self.work.display()));
+            }
+            self.save_file("settings.toml", text.as_bytes());
+        }
+    }
+
     fn save(&mut self, name: &str, bytes: &[u8]) {
-        // the folder is made by the first state written, after the engine has checked
-        // its settings and the picks, so a refused run leaves nothing behind
-        let _ = std::fs::create_dir_all(&self.out);
-        let path = self.out.join(name);
+        self.start();
+        self.save_file(name, bytes);
+    }
+
+    fn save_file(&mut self, name: &str, bytes: &[u8]) {
+        let path = self.work.join(name);
         if let Err(e) = write_atomic(&path, bytes) {
             self.error = Some(format!("cannot write {}: {e}", path.display()));
         }
@@ -167,6 +209,9 @@ impl inversion::Observer for Watch {
     fn on(&mut self, event: Event<'_>) {
         match event {
             Event::Stage { name, length } => {
+                // the full settings go to the work folder before any work, so that a
+                // run stopped at any point resumes with exactly these
+                self.start();
                 if let Some(b) = &self.bar {
                     b.reset();
                     b.set_length(length as u64);
@@ -225,9 +270,11 @@ pub struct Run {
     pub report: InvertReport,
 }
 
-/// Inverts `survey` under `settings` into the folder `out` (made when the first state
-/// is saved or at the end; a refused run leaves nothing). `picks` names the picks in
-/// the report and in errors.
+/// Inverts `survey` under `settings` into the folder `out`. The run works in
+/// [`work_dir`]`(out)` and replaces `out` with it when every file is written; a refused
+/// run leaves nothing, a failed or interrupted one leaves its states in the work folder
+/// for `--resume` and `out` as it was. `picks` names the picks in the report and in
+/// errors.
 pub fn run(
     survey: Survey,
     picks: &Path,
@@ -237,6 +284,7 @@ pub fn run(
     progress: bool,
 ) -> anyhow::Result<Run> {
     let t0 = Instant::now();
+    let work = work_dir(out)?;
     let problem = Problem::new(survey, settings);
     let mut watch = Watch {
         bar: progress.then(|| {
@@ -250,7 +298,8 @@ pub fn run(
             );
             b
         }),
-        out: out.to_path_buf(),
+        work: work.clone(),
+        settings_toml: Some(settings.to_toml()),
         error: None,
         last_chi2: None,
     };
@@ -260,21 +309,30 @@ pub fn run(
     }
     let inv = match result {
         Ok(inv) => inv,
-        Err(InversionError::Pick {
-            index,
-            problem: why,
-        }) if index < problem.survey.picks.len() => {
-            let p = &problem.survey.picks[index];
-            anyhow::bail!(
-                "{}:{}: shot '{}' at x={} to the receiver at x={}: {why}",
-                picks.display(),
-                p.line,
-                p.shot,
-                p.source.x,
-                p.receiver.x
-            )
+        Err(e) => {
+            let kept = keep_or_remove(&work);
+            let e = match e {
+                InversionError::Pick {
+                    index,
+                    problem: why,
+                } if index < problem.survey.picks.len() => {
+                    let p = &problem.survey.picks[index];
+                    anyhow::anyhow!(
+                        "{}:{}: shot '{}' at x={} to the receiver at x={}: {why}",
+                        picks.display(),
+                        p.line,
+                        p.shot,
+                        p.source.x,
+                        p.receiver.x
+                    )
+                }
+                e => e.into(),
+            };
+            return Err(match kept {
+                Some(note) => e.context(note),
+                None => e,
+            });
         }
-        Err(e) => return Err(e.into()),
     };
     if let Some(e) = watch.error {
         eprintln!("warning: {e}");
@@ -289,9 +347,12 @@ pub fn run(
         &inv,
         t0.elapsed().as_secs_f64(),
     );
-    std::fs::create_dir_all(out)
-        .with_context(|| format!("cannot create the output folder {}", out.display()))?;
-    crate::report::write_run(out, &problem, &inv, &report)?;
+    std::fs::create_dir_all(&work)
+        .with_context(|| format!("cannot create the work folder {}", work.display()))?;
+    // what an earlier, interrupted attempt left beside this run's states is stale
+    clear_except(&work, &[CHECKPOINT, REFINE_STATE, "settings.toml"], &inv)?;
+    crate::report::write_run(&work, &problem, &inv, &report)?;
+    swap_into_place(&work, out)?;
     Ok(Run {
         problem,
         inversion: inv,
@@ -299,8 +360,91 @@ pub fn run(
     })
 }
 
+/// After a failed run: keeps the work folder when it holds a checkpoint (and says how
+/// to continue), removes it otherwise.
+fn keep_or_remove(work: &Path) -> Option<String> {
+    if work.join(CHECKPOINT).exists() {
+        Some(format!(
+            "the states computed so far are kept in {}: `--resume` with the output folder continues from them",
+            work.display()
+        ))
+    } else {
+        let _ = std::fs::remove_dir_all(work);
+        None
+    }
+}
+
+/// Removes every file of `work` but the named states that this run wrote (a state
+/// this run did not write, e.g. `refine.bin` of an earlier attempt when the refinement
+/// is off now, is stale too).
+fn clear_except(work: &Path, states: &[&str], inv: &Inversion) -> anyhow::Result<()> {
+    let refined = inv
+        .stages
+        .iter()
+        .any(|s| matches!(s.history, inversion::History::Linearised { .. }));
+    for entry in
+        std::fs::read_dir(work).with_context(|| format!("cannot read {}", work.display()))?
+    {
+        let entry = entry?;
+        let name = entry.file_name().to_string_lossy().into_owned();
+        let keep = states.contains(&name.as_str()) && (name != REFINE_STATE || refined);
+        if !keep {
+            let path = entry.path();
+            let r = if path.is_dir() {
+                std::fs::remove_dir_all(&path)
+            } else {
+                std::fs::remove_file(&path)
+            };
+            r.with_context(|| format!("cannot remove the stale {}", path.display()))?;
+        }
+    }
+    Ok(())
+}
+
+/// Replaces `out` by the finished `work` folder: `out` is renamed aside, `work` renamed
+/// to `out`, the old one removed. Between the two renames (microseconds) `out` is
+/// missing; its old contents are then still in `.NAME.old`.
+fn swap_into_place(work: &Path, out: &Path) -> anyhow::Result<()> {
+    let old = work.with_file_name(
+        work.file_name()
+            .map(|n| n.to_string_lossy().replace(".running", ".old"))
+            .unwrap_or_default(),
+    );
+    if old.exists() {
+        std::fs::remove_dir_all(&old)
+            .with_context(|| format!("cannot remove {}", old.display()))?;
+    }
+    if out.exists() {
+        std::fs::rename(out, &old).with_context(|| {
+            format!(
+                "cannot move the earlier results in {} aside to {}",
+                out.display(),
+                old.display()
+            )
+        })?;
+    }
+    std::fs::rename(work, out)
+        .with_context(|| format!("cannot move {} to {}", work.display(), out.display()))?;
+    if old.exists() {
+        let _ = std::fs::remove_dir_all(&old);
+    }
+    Ok(())
+}
+
 /// `slowfield invert`.
 pub fn invert(req: &InvertRequest) -> anyhow::Result<ExitCode> {
+    let work = work_dir(&req.output)?;
+    let resuming_it = req
+        .resume
+        .as_ref()
+        .is_some_and(|r| work_dir(r).is_ok_and(|w| w == work));
+    if work.exists() && !resuming_it {
+        anyhow::bail!(
+            "an interrupted run into {out} left its states in {w}: continue it with `--resume {out}` (the same picks), or delete {w} to start afresh",
+            out = req.output.display(),
+            w = work.display()
+        );
+    }
     let (settings, resume) = settings(req)?;
     settings.validate().map_err(|e| {
         // the value came from a flag, the --config file or the resumed run's settings
