@@ -120,6 +120,9 @@ pub struct QcReport {
     pub min_receiver_spacing_m: f64,
     /// Picks without their own uncertainty.
     pub picks_without_sigma: usize,
+    /// Zero-offset picks (receiver at the source): accepted, left out of every
+    /// inversion (they carry no information on the velocity).
+    pub zero_offset_picks: usize,
     /// Per-shot summaries.
     pub per_shot: Vec<ShotSummary>,
     /// Number of reciprocal pairs found.
@@ -167,6 +170,10 @@ pub fn check(survey: &Survey, settings: &QcSettings) -> QcReport {
             }),
         min_receiver_spacing_m: survey.min_receiver_spacing().unwrap_or(0.0),
         picks_without_sigma: picks.iter().filter(|p| p.sigma.is_none()).count(),
+        zero_offset_picks: picks
+            .iter()
+            .filter(|p| p.offset() <= SAME_POSITION_M)
+            .count(),
         per_shot: survey
             .shots
             .iter()
@@ -452,6 +459,13 @@ impl QcReport {
             self.time_range_ms[0],
             self.time_range_ms[1]
         );
+        if self.zero_offset_picks > 0 {
+            let _ = writeln!(
+                s,
+                "Zero offset  {} picks with the receiver at the source: accepted, and left out of every inversion (no information on the velocity)",
+                self.zero_offset_picks
+            );
+        }
         let _ = writeln!(s);
         let _ = writeln!(s, "Apparent velocities (m/s), robust slopes of the nearest and farthest third of each side:");
         let _ = writeln!(

@@ -53,6 +53,9 @@ pub enum VerifyError {
     /// The cell size asked for is unusable.
     #[error("solver cell {0} m must be a positive number no larger than the model itself")]
     BadCell(f64),
+    /// The grid asked for is beyond the size limit; the message says what to change.
+    #[error("{0}")]
+    TooLarge(String),
     /// The solver refused one shot.
     #[error("shot '{id}': {error}")]
     Shot {
@@ -89,6 +92,14 @@ pub fn solver_grid(
         return Err(VerifyError::BadCell(cell));
     }
     let top = surface.highest().max(m.z_max());
+    crate::limits::extent(
+        m.x_max() - m.x0,
+        top - m.z0,
+        cell,
+        "the solver grid",
+        "give a larger cell (--cell, or cell_m in the settings)",
+    )
+    .map_err(VerifyError::TooLarge)?;
     let spec = GridSpec::covering(m.x0, m.x_max(), m.z0, top, cell);
     let nx = spec.nx;
     let model_top = model.surface();

@@ -20,15 +20,17 @@ use crate::model::{GridSpec, VelocityGrid};
 use crate::pinn::{Checkpoint, StepLog};
 use crate::settings::{Method, RunSettings};
 use crate::start::{fit_linear, StartFit};
-use crate::survey::Survey;
+use crate::survey::{Survey, SAME_POSITION_M};
 use crate::verify::{self, Misfit, VerifyError};
 
 /// What every method is given: the picks with their σ, the domain and its grid, the
 /// starting model, and the judge's grid.
 #[derive(Debug, Clone)]
 pub struct Problem {
-    /// The picks, shots and ground surface.
+    /// The picks, shots and ground surface (zero-offset picks left out).
     pub survey: Survey,
+    /// Zero-offset picks left out of the survey given.
+    pub zero_offset: usize,
     /// Standard uncertainty of every pick (its own or the run's default), s.
     pub sigma_s: Vec<f64>,
     /// The 1-D starting model fitted to the picks.
@@ -48,6 +50,10 @@ impl Problem {
     /// deepest turning ray (× 1.5 + 3 m, at least 10 m) unless set, the inversion cell
     /// from the receiver spacing unless set, the judge at half that cell.
     pub fn new(survey: Survey, settings: &RunSettings) -> Problem {
+        // One rule for zero-offset picks (receiver at the source): every reader accepts
+        // them (their time must be about 0 ms) and `check` counts them; they carry no
+        // information on the ground's velocity, so no inversion uses them.
+        let (survey, zero_offset) = survey.without(|p| p.offset() <= SAME_POSITION_M);
         let default_sigma = settings.sigma_ms * 1e-3;
         let sigma_s = survey
             .picks
@@ -70,6 +76,7 @@ impl Problem {
         let grid = GridSpec::covering(x0, x1, zlow - depth_m, survey.surface.highest(), cell_m);
         Problem {
             survey,
+            zero_offset,
             sigma_s,
             start,
             depth_m,
@@ -77,6 +84,33 @@ impl Problem {
             cell_m,
             judge_cell_m: 0.5 * cell_m,
         }
+    }
+
+    /// Refuses grids beyond [`crate::limits`] before any work: the inversion grid and
+    /// the judge's (four times the nodes), and the judge's shots × nodes.
+    pub fn check_size(&self) -> Result<(), String> {
+        let g = &self.grid;
+        let (w, h) = (g.x_max() - g.x0, (g.nz.saturating_sub(1)) as f64 * g.dz);
+        let fix = "give a larger cell_m or a smaller depth_m";
+        crate::limits::extent(w, h, self.cell_m, "the inversion grid", fix)?;
+        crate::limits::extent(
+            w,
+            h,
+            self.judge_cell_m,
+            "the judge's grid (half the cell)",
+            fix,
+        )?;
+        let nodes =
+            ((w / self.judge_cell_m).round() + 1.0) * ((h / self.judge_cell_m).ceil() + 1.0);
+        let visits = nodes * self.survey.shots.len() as f64;
+        if visits > crate::limits::MAX_SHOT_NODES as f64 {
+            return Err(format!(
+                "the check would solve {} shots on {nodes:.3e} nodes each ({visits:.3e} node visits), more than the limit of {:.1e}: {fix}, or split the line",
+                self.survey.shots.len(),
+                crate::limits::MAX_SHOT_NODES as f64
+            ));
+        }
+        Ok(())
     }
 
     /// Misfit of `times` (s, one per pick) to the picks.
@@ -279,10 +313,18 @@ pub fn run(
 ) -> Result<Inversion, InversionError> {
     let t0 = Instant::now();
     settings.validate().map_err(InversionError::Setting)?;
+    problem.check_size().map_err(InversionError::Setting)?;
     let fitted = match settings.method {
         Method::Pinn => pinn::run(problem, settings, resume, observer)?,
     };
     observer.on(Event::Judging);
+    let mut fitted = fitted;
+    if problem.zero_offset > 0 {
+        fitted.notes.push(format!(
+            "{} zero-offset picks (receiver at the source) were left out: they carry no information on the velocity",
+            problem.zero_offset
+        ));
+    }
     let judge = judge(problem, &fitted.model)?;
     let coverage = coverage(problem, &fitted.model)?;
     Ok(Inversion {

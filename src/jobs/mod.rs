@@ -123,38 +123,49 @@ pub fn check(a: &CheckRequest) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// Writes picks (and optionally a second time column) in the picks format.
-pub fn picks_csv(survey: &Survey, times: &[f64], sigma: Option<&[f64]>, residuals: bool) -> String {
-    use std::fmt::Write;
-    let mut s = String::with_capacity(64 * times.len());
-    s.push_str("shot,source_x,source_z,receiver_x,receiver_z,time_ms");
+/// Picks (and optionally the input's times and residuals) in the picks format,
+/// through the csv writer: a shot id holding a comma or a quote stays one field.
+pub fn picks_csv(
+    survey: &Survey,
+    times: &[f64],
+    sigma: Option<&[f64]>,
+    residuals: bool,
+) -> anyhow::Result<Vec<u8>> {
+    let mut w = csv::Writer::from_writer(Vec::with_capacity(64 * times.len()));
+    let mut header = vec![
+        "shot",
+        "source_x",
+        "source_z",
+        "receiver_x",
+        "receiver_z",
+        "time_ms",
+    ];
     if sigma.is_some() {
-        s.push_str(",sigma_ms");
+        header.push("sigma_ms");
     }
     if residuals {
-        s.push_str(",observed_ms,residual_ms");
+        header.extend(["observed_ms", "residual_ms"]);
     }
-    s.push('\n');
+    w.write_record(&header)?;
     for (k, p) in survey.picks.iter().enumerate() {
-        let _ = write!(
-            s,
-            "{},{},{},{},{},{:.4}",
-            p.shot,
-            p.source.x,
-            p.source.z,
-            p.receiver.x,
-            p.receiver.z,
-            times[k] * 1e3
-        );
+        let mut rec = vec![
+            p.shot.clone(),
+            p.source.x.to_string(),
+            p.source.z.to_string(),
+            p.receiver.x.to_string(),
+            p.receiver.z.to_string(),
+            format!("{:.4}", times[k] * 1e3),
+        ];
         if let Some(sg) = sigma {
-            let _ = write!(s, ",{:.4}", sg[k] * 1e3);
+            rec.push(format!("{:.4}", sg[k] * 1e3));
         }
         if residuals {
-            let _ = write!(s, ",{:.4},{:.4}", p.time * 1e3, (p.time - times[k]) * 1e3);
+            rec.push(format!("{:.4}", p.time * 1e3));
+            rec.push(format!("{:.4}", (p.time - times[k]) * 1e3));
         }
-        s.push('\n');
+        w.write_record(&rec)?;
     }
-    s
+    Ok(w.into_inner()?)
 }
 
 /// `slowfield forward`.
@@ -186,8 +197,8 @@ pub fn forward(a: &ForwardRequest) -> anyhow::Result<ExitCode> {
         crate::synthetic::add_noise(&mut times, &sigma, a.seed);
         sigma
     });
-    let text = picks_csv(&survey, &times, sigma.as_deref(), a.residuals);
-    write_atomic(&a.output, text.as_bytes())
+    let bytes = picks_csv(&survey, &times, sigma.as_deref(), a.residuals)?;
+    write_atomic(&a.output, &bytes)
         .with_context(|| format!("cannot write {}", a.output.display()))?;
     eprintln!(
         "wrote {} times for {} shots to {} (solver grid {}×{} at {} m{})",

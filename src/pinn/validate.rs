@@ -16,8 +16,22 @@ pub(crate) fn refine(s: &crate::settings::RefineSettings) -> Result<(), PinnErro
         name: "refine",
         problem,
         hint: "see the [refine] table of settings.toml",
-    })
+    })?;
+    if s.detail_features > 4096 || s.detail_width > 4096 || s.detail_depth > 64 {
+        return Err(bad(
+            "refine.detail_*",
+            format!(
+                "{} features into {} × {} is beyond the limits 4096 features, 4096 wide, 64 deep",
+                s.detail_features, s.detail_depth, s.detail_width
+            ),
+            "use e.g. 32 features into 2 × 32 (the defaults)",
+        ));
+    }
+    Ok(())
 }
+
+/// Points per training step at most (collocation, picks, shard).
+pub const MAX_BATCH: usize = 262_144;
 
 pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
     if !(s.v_min.is_finite() && s.v_min > 0.0) {
@@ -101,6 +115,21 @@ pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
             "zero collocation points".into(),
             "use e.g. 2048",
         ));
+    }
+    // a batch row costs about 100 floats of activations per hidden unit and tangent;
+    // these caps keep one step within a few GB on any network size the widths allow
+    for (name, v, cap) in [
+        ("collocation", s.collocation, MAX_BATCH),
+        ("pick_batch", s.pick_batch, MAX_BATCH),
+        ("shard_points", s.shard_points, MAX_BATCH),
+    ] {
+        if v > cap {
+            return Err(bad(
+                name,
+                format!("{v} is more than the limit of {cap} points per step"),
+                "use a few thousand (the defaults are 2048, 1024 and 1024)",
+            ));
+        }
     }
     if s.shard_points == 0 {
         return Err(bad(

@@ -185,6 +185,31 @@ impl Survey {
         Survey::assemble(Path::new("<memory>"), picks, surface)
     }
 
+    /// The same survey without the picks for which `drop` holds (shots left without
+    /// picks disappear), the ground surface and the warnings kept; the number dropped.
+    pub fn without(&self, drop: impl Fn(&Pick) -> bool) -> (Survey, usize) {
+        let kept: Vec<Pick> = self.picks.iter().filter(|p| !drop(p)).cloned().collect();
+        let n = self.picks.len() - kept.len();
+        let mut shots: Vec<Shot> = Vec::new();
+        for (k, p) in kept.iter().enumerate() {
+            match shots.iter_mut().find(|s| s.id == p.shot) {
+                Some(s) => s.picks.push(k),
+                None => shots.push(Shot {
+                    id: p.shot.clone(),
+                    source: p.source,
+                    picks: vec![k],
+                }),
+            }
+        }
+        let survey = Survey {
+            picks: kept,
+            shots,
+            surface: self.surface.clone(),
+            warnings: self.warnings.clone(),
+        };
+        (survey, n)
+    }
+
     fn assemble(path: &Path, picks: Vec<Pick>, surface: Surface) -> Result<Survey, InputErrors> {
         let mut errors = Vec::new();
         let mut warnings = Vec::new();
