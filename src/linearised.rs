@@ -183,13 +183,24 @@ pub trait ForwardModel {
     fn linearise(&mut self, velocity: &[f64]) -> Result<Linearisation, String>;
 }
 
-/// The method's side of the outer loop.
+/// What an inner solve hands back.
+#[derive(Clone, Debug, PartialEq)]
+pub struct InnerSolution {
+    /// The new parameters.
+    pub params: Vec<f64>,
+    /// The χ² the linearisation predicts there.
+    pub predicted_chi2: f64,
+    /// Something the user should know (e.g. the solver stopped early), if any.
+    pub note: Option<String>,
+}
+
+/// The method's side of the outer loop. An error stops the loop with its message.
 pub trait InnerProblem {
     /// Velocity at the grid nodes for parameters `p`, and the regulariser's value.
-    fn velocity(&self, p: &[f64]) -> (Vec<f64>, f64);
+    fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String>;
     /// Minimises the method's objective linearised by `lin` at `p` (whose velocity is
-    /// `v`); returns the new parameters and the χ² the linearisation predicts there.
-    fn solve(&mut self, p: &[f64], v: &[f64], lin: Linearisation) -> (Vec<f64>, f64);
+    /// `v`).
+    fn solve(&mut self, p: &[f64], v: &[f64], lin: Linearisation) -> Result<InnerSolution, String>;
 }
 
 /// Settings of the outer loop.
@@ -380,6 +391,8 @@ pub struct OuterOutcome {
     pub stop: OuterStop,
     /// The iteration a resumed loop continued with (`None`: from the start).
     pub resumed_from: Option<usize>,
+    /// Notes of the inner solves, with the iteration they started from.
+    pub notes: Vec<(usize, String)>,
 }
 
 impl OuterOutcome {
@@ -429,10 +442,11 @@ pub fn run(
         }
         _ => (fresh, None),
     };
+    let mut notes = Vec::new();
     let stop = loop {
         observer.on_state(&st);
         let it = st.iteration;
-        let (v, reg) = inner.velocity(&st.params);
+        let (v, reg) = inner.velocity(&st.params)?;
         let lin = forward.linearise(&v)?;
         let chi2 = lin.chi2();
         let accepted = chi2.is_finite() && (it == 0 || chi2 < st.best_chi2);
@@ -461,11 +475,14 @@ pub fn run(
             if it == settings.iterations {
                 break OuterStop::Iterations;
             }
-            let (next, predicted) = inner.solve(&st.params, &v, lin);
-            st.full = next.clone();
-            st.params = next;
+            let next = inner.solve(&st.params, &v, lin)?;
+            if let Some(n) = next.note {
+                notes.push((it, n));
+            }
+            st.full = next.params.clone();
+            st.params = next.params;
             st.step = 1.0;
-            st.predicted = predicted;
+            st.predicted = next.predicted_chi2;
         } else {
             if it == settings.iterations {
                 break OuterStop::Iterations;
@@ -490,5 +507,6 @@ pub fn run(
         history: st.history,
         stop,
         resumed_from,
+        notes,
     })
 }

@@ -4,8 +4,8 @@
 //! overshoots, and a bit-exact resume from a saved state.
 
 use slowfield::linearised::{
-    chi2_of, run, ForwardModel, InnerProblem, Jacobian, Linearisation, OuterLog, OuterObserver,
-    OuterSettings, OuterState, Quiet,
+    chi2_of, run, ForwardModel, InnerProblem, InnerSolution, Jacobian, Linearisation, OuterLog,
+    OuterObserver, OuterSettings, OuterState, Quiet,
 };
 
 /// Two picks through two unknowns with a nonlinear true misfit, to watch the loop.
@@ -32,18 +32,27 @@ struct Overshoot {
     gain: f64,
 }
 impl InnerProblem for Overshoot {
-    fn velocity(&self, p: &[f64]) -> (Vec<f64>, f64) {
-        (p.iter().map(|s| 1.0 / s).collect(), 0.0)
+    fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String> {
+        Ok((p.iter().map(|s| 1.0 / s).collect(), 0.0))
     }
-    fn solve(&mut self, p: &[f64], _v: &[f64], lin: Linearisation) -> (Vec<f64>, f64) {
+    fn solve(
+        &mut self,
+        p: &[f64],
+        _v: &[f64],
+        lin: Linearisation,
+    ) -> Result<InnerSolution, String> {
         let ds: Vec<f64> = (0..2)
             .map(|i| {
                 let (_, w) = lin.jacobian.row(i).next().unwrap();
                 self.gain * lin.residual_s[i] / w
             })
             .collect();
-        let predicted = chi2_of(&lin.predicted_residual(&ds), &lin.sigma_s);
-        (p.iter().zip(&ds).map(|(a, b)| a + b).collect(), predicted)
+        let predicted_chi2 = chi2_of(&lin.predicted_residual(&ds), &lin.sigma_s);
+        Ok(InnerSolution {
+            params: p.iter().zip(&ds).map(|(a, b)| a + b).collect(),
+            predicted_chi2,
+            note: None,
+        })
     }
 }
 

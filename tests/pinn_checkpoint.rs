@@ -78,6 +78,7 @@ fn fingerprint_of(out: &PinnOutcome) -> (Vec<u64>, Vec<u64>, Vec<u64>) {
         out.predicted_s.iter().map(|t| t.to_bits()).collect(),
         out.model
             .velocity(&pts)
+            .unwrap()
             .iter()
             .map(|v| v.to_bits())
             .collect(),
@@ -221,7 +222,7 @@ fn divergence_rolls_back_then_stops_with_the_best_model() {
         Err(PinnError::Diverged { retries, best, .. }) => {
             assert_eq!(retries, s.max_retries);
             // the best model so far is the start: finite velocities inside the bounds
-            let v = best.model.velocity(&[[10.0, -5.0]]);
+            let v = best.model.velocity(&[[10.0, -5.0]]).unwrap();
             assert!(v[0].is_finite() && v[0] > s.v_min && v[0] < s.v_max);
             assert!(best.predicted_s.iter().all(|t| t.is_finite()));
         }

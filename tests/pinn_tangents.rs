@@ -143,7 +143,7 @@ fn weight_gradient_of_a_tangent_loss_matches_differences() {
         let dt = Tensor::<2>::from_data(TensorData::new(seed, [n, 2]), &ad);
         let (_, d) = net.forward_tangent(xt, vec![dt]);
         let loss = d[0].clone().mul(d[0].clone()).sum();
-        let g = net.grads(&loss.backward());
+        let g = net.grads(&loss.backward()).unwrap();
         // L(θ) in f64 with the derivative ∂y/∂x0 itself by central differences
         let loss_ref = |q: &[f32]| -> f64 {
             let hx = 1e-4;
@@ -246,7 +246,7 @@ fn time_gradient_matches_central_differences_after_training() {
                 pairs.push((a, b));
             }
         }
-        let g = m.time_gradient(&pairs);
+        let g = m.time_gradient(&pairs).unwrap();
         let h = 0.05;
         let mut shifted = Vec::new();
         for &(a, b) in &pairs {
@@ -255,7 +255,7 @@ fn time_gradient_matches_central_differences_after_training() {
             shifted.push(([a[0], a[1] + h], b));
             shifted.push(([a[0], a[1] - h], b));
         }
-        let t = m.times(&shifted);
+        let t = m.times(&shifted).unwrap();
         let fd: Vec<f64> = (0..pairs.len())
             .flat_map(|k| {
                 [
@@ -272,8 +272,8 @@ fn time_gradient_matches_central_differences_after_training() {
             "∇T from tangents differs from central differences: {e}"
         );
         let swapped: Vec<_> = pairs.iter().map(|&(a, b)| (b, a)).collect();
-        let t1 = m.times(&pairs);
-        let t2 = m.times(&swapped);
+        let t1 = m.times(&pairs).unwrap();
+        let t2 = m.times(&swapped).unwrap();
         for (x, y) in t1.iter().zip(&t2) {
             assert!(
                 (x - y).abs() <= 1e-6 * x.abs(),
@@ -335,7 +335,7 @@ fn fused_layers_match_tensor_operations() {
                     .add(d[1].clone().mul(d[1].clone()).sum().mul_scalar(0.5))
                     .add(y_only.sum())
                     .add(e[0].clone().mul(y1).sum());
-                let g = net.grads(&loss.backward());
+                let g = net.grads(&loss.backward()).unwrap();
                 out.push(g.iter().map(|&v| v as f64).collect());
             }
             out

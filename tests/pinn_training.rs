@@ -110,7 +110,7 @@ fn zone_errors(out: &slowfield::pinn::PinnOutcome, v0: f64, g: f64) -> (f64, f64
             pts.push([10.0 + 5.0 * i as f64, -1.0 - j as f64]);
         }
     }
-    let v = out.model.velocity(&pts);
+    let v = out.model.velocity(&pts).unwrap();
     let errs: Vec<f64> = pts
         .iter()
         .zip(&v)

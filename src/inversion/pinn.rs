@@ -150,6 +150,13 @@ pub(super) fn run(
             &mut Relay(observer),
         )
         .map_err(|e| InversionError::Method(e.to_string()))?;
+        if let Some((it, first)) = r.outer.notes.first() {
+            notes.push(format!(
+                "the refinement's inner solver stopped early in {} of its {} outer iterations (first at iteration {it}: {first})",
+                r.outer.notes.len(),
+                r.outer.history.len().saturating_sub(1)
+            ));
+        }
         if let (Some(st), None) = (&resume.outer, r.outer.resumed_from) {
             notes.push(format!(
                 "the refinement state (iteration {}) belongs to another model, grid or [refine] settings; the refinement was redone from the start",
@@ -170,7 +177,9 @@ pub(super) fn run(
     } else {
         outcome.model.clone()
     };
-    let v = final_model.velocity_on_grid(&problem.grid);
+    let v = final_model
+        .velocity_on_grid(&problem.grid)
+        .map_err(|e| InversionError::Method(e.to_string()))?;
     let model = VelocityGrid {
         spec: problem.grid,
         v,

@@ -184,7 +184,7 @@ mod tests {
         let d = Detail::new(&domain(), &refine(), &pinn(true));
         let device = Device::flex();
         let net = d.net(&d.params, &device, false);
-        let v = to_f64(d.logit(&net, &domain(), &POINTS, &device));
+        let v = to_f64(d.logit(&net, &domain(), &POINTS, &device)).unwrap();
         assert_eq!(v, vec![0.0; POINTS.len()]);
     }
 
@@ -202,10 +202,10 @@ mod tests {
             Tensor::<2>::from_data(TensorData::new(v.clone(), [b.n, b.d_in]), &device)
         };
         let (_, tangents) = net.forward_tangent(t(&b.x), vec![t(&b.dx), t(&b.dz)]);
-        let value = |pts: &[[f64; 2]]| to_f64(d.logit(&net, &dom, pts, &device));
+        let value = |pts: &[[f64; 2]]| to_f64(d.logit(&net, &dom, pts, &device)).unwrap();
         let h = 1e-2;
         for (dir, tan) in tangents.into_iter().enumerate() {
-            let tan = to_f64(tan);
+            let tan = to_f64(tan).unwrap();
             let shift = |s: f64| -> Vec<[f64; 2]> {
                 POINTS
                     .iter()

@@ -7,9 +7,9 @@
 use burn::prelude::*;
 
 use super::model::{physics, tensor2, time_value, TrainedModel};
-use super::net::NetTensors;
+use super::net::{f32s, NetTensors};
 use super::sampler::{Pair, Sampler};
-use super::{Pick, PinnSettings};
+use super::{Pick, PinnError, PinnSettings};
 use crate::regularise::{Regulariser, MIN_SUPPORT_BETA, TV_EPSILON};
 
 /// What the loss of a step is computed from.
@@ -51,10 +51,13 @@ pub(super) fn regulariser_mean(
     }
 }
 
+/// The gradient of a shard and `[total, data, eikonal, regulariser, mean squared error]`.
+pub(super) type ShardLoss = (Vec<f32>, [f64; 5]);
+
 /// Loss of one shard (its collocation pairs and picks) with the sums scaled by the
 /// whole batch sizes, so that the shard losses add up to the batch loss. Returns the
 /// gradient and `[total, data, eikonal, regulariser, mean squared error]`, or `None`
-/// when something is not finite.
+/// when something is not finite (an error only for a fault of the engine).
 pub(super) fn shard_loss(
     ctx: &Ctx,
     params: &[f32],
@@ -63,7 +66,7 @@ pub(super) fn shard_loss(
     n_colloc: usize,
     n_picks: usize,
     ad: &Device,
-) -> Option<(Vec<f32>, [f64; 5])> {
+) -> Result<Option<ShardLoss>, PinnError> {
     let s = ctx.settings;
     let model = &ctx.model;
     let (tp, vp) = split(ctx, params);
@@ -135,9 +138,9 @@ pub(super) fn shard_loss(
         ],
         0,
     );
-    let v: Vec<f32> = parts.into_data().try_into_vec::<f32>().ok()?;
+    let v: Vec<f32> = f32s(parts.into_data())?;
     if v.iter().any(|x| !x.is_finite()) {
-        return None;
+        return Ok(None);
     }
     let vals = [
         v[0] as f64,
@@ -147,13 +150,13 @@ pub(super) fn shard_loss(
         v[4] as f64,
     ];
     let grads = total.backward();
-    let mut g = tau.grads(&grads);
+    let mut g = tau.grads(&grads)?;
     if s.train_velocity {
-        g.extend(vel.grads(&grads));
+        g.extend(vel.grads(&grads)?);
     } else {
         g.extend(std::iter::repeat_n(0.0, vp.len()));
     }
-    Some((g, vals))
+    Ok(Some((g, vals)))
 }
 
 #[cfg(test)]
@@ -213,7 +216,8 @@ mod tests {
         ] {
             let tensor = to_f64(
                 regulariser_mean(kind, [col(&gx), col(&gz)], 1.0 / n as f64).reshape([1, 1]),
-            )[0];
+            )
+            .unwrap()[0];
             let host = crate::regularise::mean(kind, &gx, &gz);
             let grid = crate::regularise::grid_mean(kind, &spec, &v, scale);
             // measured (f32 sums over 301 101 points; central differences at 2 cm):

@@ -227,6 +227,9 @@ pub enum PinnError {
     /// The forward solver of the refinement stage refused the model.
     #[error("refining the velocity against fast marching: {0}")]
     Refine(String),
+    /// A tensor could not be read back (a fault of the engine, not of the input).
+    #[error("the engine could not read a tensor back ({0}); this is a fault of slowfield: please report it with the settings and picks used")]
+    Tensor(String),
     /// The thread pool could not be built.
     #[error(
         "cannot start {threads} worker threads: {message}; set threads = 0 to use the default pool"

@@ -9,7 +9,7 @@ use super::detail::Detail;
 use super::geom::{Frame, TAU_FEATURES};
 use super::net::{to_f64, MlpShape, NetTensors};
 use super::sampler::Pair;
-use super::{Domain, PinnSettings, StartModel};
+use super::{Domain, PinnError, PinnSettings, StartModel};
 use crate::model::GridSpec;
 
 /// Rows per inference chunk.
@@ -160,7 +160,7 @@ impl TrainedModel {
 
     /// Velocity at each point, m/s (the network is defined everywhere; points above the
     /// ground or outside the domain are extrapolation).
-    pub fn velocity(&self, points: &[[f64; 2]]) -> Vec<f64> {
+    pub fn velocity(&self, points: &[[f64; 2]]) -> Result<Vec<f64>, PinnError> {
         let device = Device::flex();
         let vel = self.vel_net(&device, false);
         let detail = self
@@ -174,56 +174,64 @@ impl TrainedModel {
                 .as_ref()
                 .map(|(d, net)| d.logit(net, &self.domain, chunk, &device));
             let v = velocity_value(&vel, &vb, &self.frame, &device, extra);
-            out.extend(to_f64(v));
+            out.extend(to_f64(v)?);
         }
-        out
+        Ok(out)
     }
 
     /// Velocity at every node of `spec` (index `j·nx + i`), `NaN` above the ground.
-    pub fn velocity_on_grid(&self, spec: &GridSpec) -> Vec<f64> {
+    pub fn velocity_on_grid(&self, spec: &GridSpec) -> Result<Vec<f64>, PinnError> {
         let mut pts = Vec::with_capacity(spec.len());
         for j in 0..spec.nz {
             for i in 0..spec.nx {
                 pts.push([spec.x(i), spec.z(j)]);
             }
         }
-        let mut v = self.velocity(&pts);
+        let mut v = self.velocity(&pts)?;
         for (k, p) in pts.iter().enumerate() {
             if p[1] > self.domain.elevation(p[0]) + 1e-9 {
                 v[k] = f64::NAN;
             }
         }
-        v
+        Ok(v)
     }
 
     /// The network's first-arrival time between each `(a, b)` pair, s.
-    pub fn times(&self, pairs: &[([f64; 2], [f64; 2])]) -> Vec<f64> {
+    pub fn times(&self, pairs: &[([f64; 2], [f64; 2])]) -> Result<Vec<f64>, PinnError> {
         let device = Device::flex();
         let tau = self.tau_net(&device, false);
         let mut out = Vec::with_capacity(pairs.len());
         for chunk in pairs.chunks(CHUNK) {
             let tb = self.tau_batch(chunk);
-            out.extend(to_f64(time_value(&tau, &tb, &device)));
+            out.extend(to_f64(time_value(&tau, &tb, &device))?);
         }
-        out
+        Ok(out)
     }
 
     /// `∇T` with respect to the field point `a` of each pair `(a, b)`, s/m, from the
     /// forward-propagated tangents.
-    pub fn time_gradient(&self, pairs: &[([f64; 2], [f64; 2])]) -> Vec<[f64; 2]> {
+    pub fn time_gradient(
+        &self,
+        pairs: &[([f64; 2], [f64; 2])],
+    ) -> Result<Vec<[f64; 2]>, PinnError> {
         let device = Device::flex();
         let tau = self.tau_net(&device, false);
         let mut out = Vec::with_capacity(pairs.len());
         for chunk in pairs.chunks(CHUNK) {
             let tb = self.tau_batch(chunk);
             let (gx, gz) = time_grad(&tau, &tb, &device);
-            out.extend(to_f64(gx).into_iter().zip(to_f64(gz)).map(|(a, b)| [a, b]));
+            out.extend(
+                to_f64(gx)?
+                    .into_iter()
+                    .zip(to_f64(gz)?)
+                    .map(|(a, b)| [a, b]),
+            );
         }
-        out
+        Ok(out)
     }
 
     /// Eikonal residual `v·|∇T| − 1` at field point `a` of each pair `(a, b)`.
-    pub fn eikonal_residual(&self, pairs: &[([f64; 2], [f64; 2])]) -> Vec<f64> {
+    pub fn eikonal_residual(&self, pairs: &[([f64; 2], [f64; 2])]) -> Result<Vec<f64>, PinnError> {
         let device = Device::flex();
         let tau = self.tau_net(&device, false);
         let vel = self.vel_net(&device, false);
@@ -232,9 +240,9 @@ impl TrainedModel {
             let tb = self.tau_batch(chunk);
             let vb = self.vel_batch(chunk.iter().map(|p| p.0));
             let (res, _) = physics(&tau, &vel, &tb, &vb, &self.frame, &device);
-            out.extend(to_f64(res));
+            out.extend(to_f64(res)?);
         }
-        out
+        Ok(out)
     }
 
     pub(super) fn tau_net(&self, device: &Device, track: bool) -> NetTensors {

@@ -27,17 +27,21 @@ use burn::tensor::activation::sigmoid;
 
 use super::fused::{self, Act};
 pub use crate::settings::Activation;
+
+use super::PinnError;
 use burn::tensor::Gradients;
 use rand::Rng;
 
 /// The values of a `[n, 1]` or `[n, k]` tensor as `f64`, row by row.
-pub(crate) fn to_f64(t: Tensor<2>) -> Vec<f64> {
-    t.into_data()
-        .try_into_vec::<f32>()
-        .unwrap_or_default()
-        .into_iter()
-        .map(f64::from)
-        .collect()
+pub(crate) fn to_f64(t: Tensor<2>) -> Result<Vec<f64>, PinnError> {
+    Ok(f32s(t.into_data())?.into_iter().map(f64::from).collect())
+}
+
+/// The values of tensor data as `f32`; every tensor of the engine is `f32`, so a
+/// failure here is a fault of the engine, reported as such rather than read as zeros.
+pub(crate) fn f32s(d: burn::tensor::TensorData) -> Result<Vec<f32>, PinnError> {
+    d.try_into_vec::<f32>()
+        .map_err(|e| PinnError::Tensor(format!("data read as f32: {e:?}")))
 }
 
 /// Layer sizes of a fully connected network, input first, output last.
@@ -182,21 +186,17 @@ impl NetTensors {
 
     /// The gradient of the last backward pass, flattened like the parameters (zeros
     /// where a parameter got none).
-    pub fn grads(&self, grads: &Gradients) -> Vec<f32> {
+    pub fn grads(&self, grads: &Gradients) -> Result<Vec<f32>, PinnError> {
         let mut out = vec![0.0f32; self.shape.n_params()];
         for (l, (wo, bo, i, o)) in self.shape.layout().into_iter().enumerate() {
             if let Some(g) = self.w[l].grad(grads) {
-                if let Ok(v) = g.into_data().try_into_vec::<f32>() {
-                    out[wo..wo + i * o].copy_from_slice(&v);
-                }
+                out[wo..wo + i * o].copy_from_slice(&f32s(g.into_data())?);
             }
             if let Some(g) = self.b[l].grad(grads) {
-                if let Ok(v) = g.into_data().try_into_vec::<f32>() {
-                    out[bo..bo + o].copy_from_slice(&v);
-                }
+                out[bo..bo + o].copy_from_slice(&f32s(g.into_data())?);
             }
         }
-        out
+        Ok(out)
     }
 
     /// Activation value and slope. The fast tanh is evaluated off the tape,

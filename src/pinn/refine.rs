@@ -37,8 +37,8 @@ use super::net::to_f64;
 use super::net::NetTensors;
 use super::PinnError;
 use crate::linearised::{
-    self, ForwardModel, InnerProblem, Linearisation, OuterObserver, OuterOutcome, OuterSettings,
-    OuterState,
+    self, ForwardModel, InnerProblem, InnerSolution, Linearisation, OuterObserver, OuterOutcome,
+    OuterSettings, OuterState,
 };
 use crate::model::GridSpec;
 use crate::regularise::Regulariser;
@@ -177,16 +177,16 @@ struct Stage<'a> {
 }
 
 impl InnerProblem for Stage<'_> {
-    fn velocity(&self, p: &[f64]) -> (Vec<f64>, f64) {
-        let (_, _, _, values, reg_value) = self.ev.forward(p);
+    fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String> {
+        let (_, _, _, values, reg_value) = self.ev.forward(p).map_err(|e| e.to_string())?;
         let mut on_grid = vec![f64::NAN; self.n_grid];
         for (&k, &val) in self.nodes.iter().zip(&values) {
             on_grid[k] = val;
         }
-        (on_grid, reg_value)
+        Ok((on_grid, reg_value))
     }
 
-    fn solve(&mut self, p: &[f64], v: &[f64], lin: Linearisation) -> (Vec<f64>, f64) {
+    fn solve(&mut self, p: &[f64], v: &[f64], lin: Linearisation) -> Result<InnerSolution, String> {
         let inner = Inner {
             ev: self.ev,
             lin: lin.remap(self.slot, self.nodes.len()),
@@ -194,18 +194,36 @@ impl InnerProblem for Stage<'_> {
             w_r: self.settings.reg_weight,
             best: RefCell::new((f64::INFINITY, p.to_vec(), f64::NAN)),
             last: RefCell::new(None),
+            failure: RefCell::new(None),
         };
         let solver = LBFGS::new(MoreThuenteLineSearch::new(), 10);
-        // the line search may give up near the f32 rounding floor: the best point
-        // evaluated is kept either way
-        let _ = Executor::new(&inner, solver)
+        let run = Executor::new(&inner, solver)
             .configure(|st| {
                 st.param(p.to_vec())
                     .max_iters(self.settings.inner_steps as u64)
             })
             .run();
-        let (_, bp, bchi) = inner.best.into_inner();
-        (bp, bchi)
+        if let Some(e) = inner.failure.take() {
+            return Err(e);
+        }
+        let (objective, params, predicted_chi2) = inner.best.take();
+        match run {
+            Ok(_) => Ok(InnerSolution {
+                params,
+                predicted_chi2,
+                note: None,
+            }),
+            // the line search may give up near the f32 rounding floor: the best point
+            // evaluated is kept and the stop is reported, not hidden
+            Err(e) if objective.is_finite() => Ok(InnerSolution {
+                params,
+                predicted_chi2,
+                note: Some(format!(
+                    "L-BFGS stopped early ({e}); its best point was kept"
+                )),
+            }),
+            Err(e) => Err(format!("L-BFGS found no finite objective: {e}")),
+        }
     }
 }
 
@@ -227,18 +245,18 @@ struct Nets(NetTensors, Option<NetTensors>);
 
 impl Nets {
     /// The gradient of every parameter, in the order of the flat parameter vector.
-    fn grads(&self, grads: &burn::tensor::Gradients) -> Vec<f64> {
-        let mut g: Vec<f64> = self.0.grads(grads).into_iter().map(f64::from).collect();
+    fn grads(&self, grads: &burn::tensor::Gradients) -> Result<Vec<f64>, PinnError> {
+        let mut g: Vec<f64> = self.0.grads(grads)?.into_iter().map(f64::from).collect();
         if let Some(d) = &self.1 {
-            g.extend(d.grads(grads).into_iter().map(f64::from));
+            g.extend(d.grads(grads)?.into_iter().map(f64::from));
         }
-        g
+        Ok(g)
     }
 }
 
 impl VelEval<'_> {
     /// The networks, the velocity and the regulariser (both tracked), and their values.
-    fn forward(&self, p: &[f64]) -> (Nets, Tensor<2>, Tensor<1>, Vec<f64>, f64) {
+    fn forward(&self, p: &[f64]) -> Result<EvalForward, PinnError> {
         let m = self.model;
         let st = &m.settings;
         let params: Vec<f32> = p.iter().map(|&x| x as f32).collect();
@@ -271,14 +289,17 @@ impl VelEval<'_> {
         let v = velocity_value(&vel, &self.vb, &m.frame, &self.ad, extra);
         let (_, [vx, vz]) = velocity_tangent(&vel, &self.vb_reg, &m.frame, &self.ad, extra_reg);
         let reg = regulariser_mean(self.regulariser, [vx, vz], self.inv_n);
-        let values = to_f64(v.clone().detach());
-        let reg_value = to_f64(reg.clone().detach().reshape([1, 1]))
+        let values = to_f64(v.clone().detach())?;
+        let reg_value = to_f64(reg.clone().detach().reshape([1, 1]))?
             .first()
             .copied()
             .unwrap_or(f64::NAN);
-        (Nets(vel, det), v, reg, values, reg_value)
+        Ok((Nets(vel, det), v, reg, values, reg_value))
     }
 }
+
+/// The tracked networks, velocity and regulariser of one evaluation, and their values.
+type EvalForward = (Nets, Tensor<2>, Tensor<1>, Vec<f64>, f64);
 
 /// Parameters, objective and gradient of one evaluation.
 type Evaluated = (Vec<f64>, f64, Vec<f64>);
@@ -296,16 +317,28 @@ struct Inner<'a> {
     /// the last point evaluated: the optimizer asks for the cost and the gradient of
     /// a point separately
     last: RefCell<Option<Evaluated>>,
+    /// the first fault of the engine met in an evaluation
+    failure: RefCell<Option<String>>,
 }
 
 impl Inner<'_> {
-    fn eval(&self, p: &[f64]) -> (f64, Vec<f64>) {
+    /// Objective and gradient at `p`; an engine fault is kept in `failure` (so that it
+    /// is reported as an error, not as a line search giving up) and returned.
+    fn eval(&self, p: &[f64]) -> Result<(f64, Vec<f64>), PinnError> {
+        self.eval_inner(p).inspect_err(|e| {
+            self.failure
+                .borrow_mut()
+                .get_or_insert_with(|| e.to_string());
+        })
+    }
+
+    fn eval_inner(&self, p: &[f64]) -> Result<(f64, Vec<f64>), PinnError> {
         if let Some((q, f, g)) = &*self.last.borrow() {
             if q.as_slice() == p {
-                return (*f, g.clone());
+                return Ok((*f, g.clone()));
             }
         }
-        let (vel, v, reg, vals, reg_value) = self.ev.forward(p);
+        let (vel, v, reg, vals, reg_value) = self.ev.forward(p)?;
         let ds: Vec<f64> = vals
             .iter()
             .zip(&self.s_k)
@@ -323,13 +356,13 @@ impl Inner<'_> {
         let gt = Tensor::<2>::from_data(TensorData::new(gv, [n, 1]), &self.ev.ad);
         let loss = v.mul(gt).sum().add(reg.mul_scalar(self.w_r));
         let grads = loss.backward();
-        let g = vel.grads(&grads);
+        let g = vel.grads(&grads)?;
         let mut best = self.best.borrow_mut();
         if obj.is_finite() && obj < best.0 {
             *best = (obj, p.to_vec(), chi2);
         }
         *self.last.borrow_mut() = Some((p.to_vec(), obj, g.clone()));
-        (obj, g)
+        Ok((obj, g))
     }
 }
 
@@ -337,7 +370,7 @@ impl CostFunction for &Inner<'_> {
     type Param = Vec<f64>;
     type Output = f64;
     fn cost(&self, p: &Vec<f64>) -> Result<f64, argmin::core::Error> {
-        Ok(self.eval(p).0)
+        Ok(self.eval(p)?.0)
     }
 }
 
@@ -345,6 +378,6 @@ impl Gradient for &Inner<'_> {
     type Param = Vec<f64>;
     type Gradient = Vec<f64>;
     fn gradient(&self, p: &Vec<f64>) -> Result<Vec<f64>, argmin::core::Error> {
-        Ok(self.eval(p).1)
+        Ok(self.eval(p)?.1)
     }
 }

@@ -6,7 +6,7 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
 use super::checkpoint::{fingerprint, Checkpoint, State};
-use super::loss::{shard_loss, split, Ctx};
+use super::loss::{shard_loss, split, Ctx, ShardLoss};
 use super::model::{shapes, TrainedModel};
 use super::sampler::Sampler;
 use super::{
@@ -120,12 +120,12 @@ fn run(
     let mut last_good = state.clone();
     let mut stop = StopReason::MaxSteps;
     while state.step < settings.steps {
-        match train_step(&ctx, &mut state, &ad) {
+        match train_step(&ctx, &mut state, &ad)? {
             Some(log) => {
                 let mut log = log;
                 let done = state.step;
                 if done % settings.eval_every == 0 || done == settings.steps {
-                    let ev = evaluate(&ctx, &state.params);
+                    let ev = evaluate(&ctx, &state.params)?;
                     log.chi2 = Some(ev.chi2);
                     log.eikonal_rms = Some(ev.eik_rms);
                     let obj = settings.data_weight * ev.chi2
@@ -171,7 +171,7 @@ fn run(
                         state.history.clone(),
                         state.step,
                         StopReason::MaxSteps,
-                    );
+                    )?;
                     return Err(PinnError::Diverged {
                         step: failed_at,
                         retries: retries - 1,
@@ -190,13 +190,7 @@ fn run(
     let cp = Checkpoint::new(&state, fp, settings);
     observer.on_checkpoint(&cp);
     let _ = ctx.fingerprint;
-    Ok(outcome(
-        &ctx,
-        &state.params,
-        state.history.clone(),
-        state.step,
-        stop,
-    ))
+    outcome(&ctx, &state.params, state.history.clone(), state.step, stop)
 }
 
 fn outcome(
@@ -205,13 +199,13 @@ fn outcome(
     history: Vec<StepLog>,
     steps: usize,
     stop: StopReason,
-) -> PinnOutcome {
-    let ev = evaluate(ctx, params);
+) -> Result<PinnOutcome, PinnError> {
+    let ev = evaluate(ctx, params)?;
     let (t, v) = split(ctx, params);
     let mut model = ctx.model.clone();
     model.tau = t.to_vec();
     model.vel = v.to_vec();
-    PinnOutcome {
+    Ok(PinnOutcome {
         model,
         predicted_s: ev.times,
         chi2: ev.chi2,
@@ -220,7 +214,7 @@ fn outcome(
         history,
         steps,
         stop,
-    }
+    })
 }
 
 struct Eval {
@@ -230,12 +224,12 @@ struct Eval {
     eik_rms: f64,
 }
 
-fn evaluate(ctx: &Ctx, params: &[f32]) -> Eval {
+fn evaluate(ctx: &Ctx, params: &[f32]) -> Result<Eval, PinnError> {
     let (t, v) = split(ctx, params);
     let mut model = ctx.model.clone();
     model.tau = t.to_vec();
     model.vel = v.to_vec();
-    let times = model.times(&ctx.pick_pairs);
+    let times = model.times(&ctx.pick_pairs)?;
     let (mut chi, mut sq) = (0.0, 0.0);
     for (p, &tt) in ctx.picks.iter().zip(&times) {
         let e = tt - p.time_s;
@@ -243,19 +237,19 @@ fn evaluate(ctx: &Ctx, params: &[f32]) -> Eval {
         sq += e * e;
     }
     let n = ctx.picks.len() as f64;
-    let res = model.eikonal_residual(&ctx.eval_pairs);
+    let res = model.eikonal_residual(&ctx.eval_pairs)?;
     let eik = (res.iter().map(|r| r * r).sum::<f64>() / res.len().max(1) as f64).sqrt();
-    Eval {
+    Ok(Eval {
         times,
         chi2: chi / n,
         rms_ms: (sq / n).sqrt() * 1e3,
         eik_rms: eik,
-    }
+    })
 }
 
 /// One Adam step on a fresh batch; `None` when the loss or a gradient is not finite
-/// (state untouched).
-fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
+/// (state untouched); an error only for a fault of the engine.
+fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Result<Option<StepLog>, PinnError> {
     let s = ctx.settings;
     let step = state.step;
     let mut rng = ChaCha8Rng::seed_from_u64(s.seed);
@@ -290,7 +284,7 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
         let (c, d) = cut(np, k);
         shard_loss(ctx, &state.params, &pairs[a..b], &batch[c..d], nc, np, ad)
     };
-    let results: Vec<Option<(Vec<f32>, [f64; 5])>> = if shards == 1 {
+    let results: Vec<Result<Option<ShardLoss>, PinnError>> = if shards == 1 {
         vec![job(0)]
     } else {
         use rayon::prelude::*;
@@ -299,7 +293,9 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
     let mut g = vec![0.0f32; state.params.len()];
     let mut vals = [0.0f64; 5];
     for r in results {
-        let (gk, vk) = r?;
+        let Some((gk, vk)) = r? else {
+            return Ok(None);
+        };
         for (a, b) in g.iter_mut().zip(&gk) {
             *a += b;
         }
@@ -308,7 +304,7 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
         }
     }
     if g.iter().any(|v| !v.is_finite()) {
-        return None;
+        return Ok(None);
     }
 
     // Adam (Kingma & Ba 2015, Algorithm 1), step size decaying by half every
@@ -329,11 +325,11 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
         new[i] -= a * state.m[i] / (state.v[i].sqrt() + eps);
     }
     if new.iter().any(|v| !v.is_finite()) {
-        return None;
+        return Ok(None);
     }
     state.params = new;
     state.step += 1;
-    Some(StepLog {
+    Ok(Some(StepLog {
         step: state.step,
         loss: vals[0],
         data: vals[1],
@@ -343,5 +339,5 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Option<StepLog> {
         learning_rate: lr,
         chi2: None,
         eikonal_rms: None,
-    })
+    }))
 }
