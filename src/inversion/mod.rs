@@ -278,6 +278,9 @@ pub struct Inversion {
     pub detail: MethodDetail,
     /// Things the user should know (a diverged training, a state that was not used).
     pub notes: Vec<String>,
+    /// Reasons not to trust the section, each with what to try; empty when the
+    /// judge finds nothing wrong.
+    pub warnings: Vec<String>,
     /// Wall-clock seconds of the whole inversion, the judge included.
     pub seconds: f64,
 }
@@ -327,6 +330,7 @@ pub fn run(
     }
     let judge = judge(problem, &fitted.model)?;
     let coverage = coverage(problem, &fitted.model)?;
+    let warnings = trust(settings, &judge, fitted.own_fit.as_ref());
     Ok(Inversion {
         method: settings.method,
         label: fitted.label,
@@ -337,8 +341,39 @@ pub fn run(
         coverage,
         detail: fitted.detail,
         notes: fitted.notes,
+        warnings,
         seconds: t0.elapsed().as_secs_f64(),
     })
+}
+
+/// χ² of the judge above which the section does not explain the picks to their
+/// uncertainty (common practice: a reduced χ² near 1 is a fit, 2 is not).
+pub const CHI2_UNTRUSTED: f64 = 2.0;
+
+/// Why the section should not be trusted, as the judge sees it, with what to try.
+fn trust(settings: &RunSettings, judge: &Judgement, own: Option<&OwnFit>) -> Vec<String> {
+    let mut out = Vec::new();
+    let j = judge.misfit.chi2;
+    if !(j <= CHI2_UNTRUSTED) {
+        out.push(format!(
+            "the section does not explain the picks: the fast-marching check gives χ² {j:.2} (RMS {:.2} ms), above {CHI2_UNTRUSTED}; do not use it before the misfit is understood — check the picks' σ (sigma_ms) and the outliers `slowfield check` lists, then try more training steps or refinement iterations",
+            judge.misfit.rms_ms
+        ));
+    }
+    if let Some(o) = own {
+        if j > CHI2_UNTRUSTED && j > 3.0 * o.misfit.chi2 {
+            let hint = if settings.pinn.dim == 1 {
+                "the velocity is 1-D (--dim 1) while the picks need a ground that changes along the line: invert with --dim 2"
+            } else {
+                "the network's times are not solutions of the eikonal equation through its velocity: train longer (more steps, a larger eikonal_weight) or refine against fast marching (--refine N)"
+            };
+            out.push(format!(
+                "the fast-marching check (χ² {j:.2}) is far above the χ² of {}'s own times ({:.2}): {hint}",
+                o.source, o.misfit.chi2
+            ));
+        }
+    }
+    out
 }
 
 /// What a method hands back before the judge.

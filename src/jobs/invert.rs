@@ -340,6 +340,9 @@ pub fn run(
     for n in &inv.notes {
         eprintln!("note: {n}");
     }
+    for w in &inv.warnings {
+        eprintln!("warning: {w}");
+    }
     let report = InvertReport::new(
         &picks.display().to_string(),
         &problem,

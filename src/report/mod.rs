@@ -119,7 +119,7 @@ pub struct InvertReport {
     pub run_seconds: f64,
     /// Settings used (also settings.toml).
     pub settings: RunSettings,
-    /// Warnings from the picks.
+    /// Warnings: from the picks, then the judge's reasons not to trust the section.
     pub warnings: Vec<String>,
     /// Notes from the inversion.
     pub notes: Vec<String>,
@@ -180,7 +180,13 @@ impl InvertReport {
             ),
             run_seconds,
             settings: settings.clone(),
-            warnings: problem.survey.warnings.clone(),
+            warnings: problem
+                .survey
+                .warnings
+                .iter()
+                .chain(&inv.warnings)
+                .cloned()
+                .collect(),
             notes: inv.notes.clone(),
             caution: CAUTION,
         }
