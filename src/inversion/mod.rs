@@ -354,7 +354,7 @@ pub const CHI2_UNTRUSTED: f64 = 2.0;
 fn trust(settings: &RunSettings, judge: &Judgement, own: Option<&OwnFit>) -> Vec<String> {
     let mut out = Vec::new();
     let j = judge.misfit.chi2;
-    if !(j <= CHI2_UNTRUSTED) {
+    if j.is_nan() || j > CHI2_UNTRUSTED {
         out.push(format!(
             "the section does not explain the picks: the fast-marching check gives χ² {j:.2} (RMS {:.2} ms), above {CHI2_UNTRUSTED}; do not use it before the misfit is understood — check the picks' σ (sigma_ms) and the outliers `slowfield check` lists, then try more training steps or refinement iterations",
             judge.misfit.rms_ms
