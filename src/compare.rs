@@ -96,6 +96,11 @@ mod tests {
         );
         let e = against_truth(&est, &truth, &cov, &surf, 1500.0);
         assert!((e.median_pct - 10.0).abs() < 1e-9, "{e:?}");
-        assert!((e.interface_mean_abs_m.unwrap() - 1.0).abs() < 0.2, "{e:?}");
+        // the 1500 m/s level between the nodes: measured 0.955 m on 2026-12-03, 0.045 m
+        // off; bound about 2.5×
+        assert!(
+            (e.interface_mean_abs_m.unwrap() - 1.0).abs() < 0.11,
+            "{e:?}"
+        );
     }
 }

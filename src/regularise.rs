@@ -110,7 +110,9 @@ mod tests {
             mean(Regulariser::TotalVariation, &zero, &step),
             mean(Regulariser::TotalVariation, &zero, &ramp),
         );
-        assert!((tv.0 - tv.1).abs() < 0.01 * tv.0, "{tv:?}");
+        // equal but for the smoothing of |g| near zero: measured 0.30 % apart on
+        // 2026-12-03; bound about 2.5×
+        assert!((tv.0 - tv.1).abs() < 0.0075 * tv.0, "{tv:?}");
         let b2 = MIN_SUPPORT_BETA * MIN_SUPPORT_BETA;
         let ms = (
             mean(Regulariser::MinimumSupport, &zero, &step),

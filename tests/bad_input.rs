@@ -278,20 +278,110 @@ fn model_with_a_hole_below_the_ground() {
     assert!(e.contains("x=2 z=-1 is missing"), "{e}");
 }
 
+/// Names in `dir`, sorted.
+fn listing(dir: &Path) -> Vec<String> {
+    let mut v: Vec<String> = std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    v.sort();
+    v
+}
+
+/// Runs the binary in `dir`; returns (success, stderr).
+fn run_in(dir: &Path, args: &[&str]) -> (bool, String) {
+    let out = bin().args(args).current_dir(dir).output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr).into_owned();
+    assert!(!err.contains("panicked"), "panic: {err}");
+    (out.status.success(), err)
+}
+
+/// The commands that write — `forward -o FILE` and `invert -o DIR` — write nothing on
+/// bad input: no output, no temporary file, no folder. (`check` writes no file even on
+/// good input, so it cannot show this.) Each command is first run on good input in the
+/// same folder, to show that it does write there when it may.
 #[test]
 fn nothing_is_written_on_bad_input() {
     let c = Case::new();
-    let p = c.file("picks.csv", b"");
-    let out_dir: &Path = &c.dir.path().join("out");
-    let st = bin()
-        .arg("check")
-        .arg(&p)
-        .arg("--json")
-        .current_dir(c.dir.path())
-        .status()
-        .unwrap();
-    assert!(!st.success());
-    assert!(!out_dir.exists());
-    let entries: Vec<_> = std::fs::read_dir(c.dir.path()).unwrap().collect();
-    assert_eq!(entries.len(), 1, "only the input file remains");
+    let dir = c.dir.path();
+    // the good rows without the zero-offset pick, which the solvers refuse
+    let good = good_rows().replacen("A,0,0,0,0,0.000", "A,0,0,1,0,2.000", 1);
+    c.file("good.csv", good.as_bytes());
+    // line 5 (x = 6 m) has a time that is not a number
+    c.file(
+        "bad.csv",
+        good.replacen("A,0,0,6,0,12.000", "A,0,0,6,0,12.0.0", 1)
+            .as_bytes(),
+    );
+    let mut model = String::from("x,z,velocity_mps\n");
+    for j in 0..=10 {
+        for i in 0..=24 {
+            model.push_str(&format!(
+                "{},{},500\n",
+                -1.0 + 0.5 * i as f64,
+                -5.0 + 0.5 * j as f64
+            ));
+        }
+    }
+    c.file("model.csv", model.as_bytes());
+    // a velocity of zero on line 3
+    c.file(
+        "bad-model.csv",
+        model.replacen("-0.5,-5,500", "-0.5,-5,0", 1).as_bytes(),
+    );
+    c.file(
+        "small.toml",
+        b"cell_m = 0.5\n[pinn]\ntau_width = 8\ntau_depth = 2\nvel_width = 8\nvel_depth = 2\ncollocation = 64\nthreads = 1\n",
+    );
+    let inputs = listing(dir);
+
+    // forward: good input writes the file, bad picks or a bad model write nothing
+    let forward = |picks: &str, model: &str| {
+        run_in(
+            dir,
+            &["forward", "--model", model, "--picks", picks, "-o", "t.csv"],
+        )
+    };
+    let (ok, err) = forward("good.csv", "model.csv");
+    assert!(ok, "{err}");
+    assert!(
+        dir.join("t.csv").exists(),
+        "forward wrote nothing on good input"
+    );
+    std::fs::remove_file(dir.join("t.csv")).unwrap();
+    let (ok, err) = forward("bad.csv", "model.csv");
+    assert!(!ok && err.contains("bad.csv:5:"), "{err}");
+    assert_eq!(listing(dir), inputs, "forward with bad picks");
+    let (ok, err) = forward("good.csv", "bad-model.csv");
+    assert!(!ok && err.contains("bad-model.csv:3:"), "{err}");
+    assert_eq!(listing(dir), inputs, "forward with a bad model");
+
+    // invert: good input writes the folder, bad picks write nothing
+    let invert = |picks: &str| {
+        run_in(
+            dir,
+            &[
+                "invert",
+                picks,
+                "-o",
+                "out",
+                "--config",
+                "small.toml",
+                "--steps",
+                "1",
+                "--refine",
+                "0",
+            ],
+        )
+    };
+    let (ok, err) = invert("good.csv");
+    assert!(ok, "{err}");
+    assert!(
+        dir.join("out/velocity.csv").exists(),
+        "invert wrote nothing on good input"
+    );
+    std::fs::remove_dir_all(dir.join("out")).unwrap();
+    let (ok, err) = invert("bad.csv");
+    assert!(!ok && err.contains("bad.csv:5:"), "{err}");
+    assert_eq!(listing(dir), inputs, "invert with bad picks");
 }

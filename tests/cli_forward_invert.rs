@@ -94,10 +94,11 @@ fn forward_matches_the_gradient_formula_and_noise_is_seeded() {
         let exact = gradient_time(400.0, 400.0, 40.0, (rx - sx).abs()) * 1e3;
         worst = worst.max((ms - exact).abs() / exact);
     }
+    eprintln!("forward: worst relative error {worst:.5}");
     // second-order fast marching at the default 0.5 m cell, receivers on the surface
-    // row: measured 0.17 % worst here (the solver's own tests check the fine-grid
-    // accuracy); the bound leaves room for the coarse cell, not for a wrong solver
-    assert!(worst < 0.005, "worst relative error {worst}");
+    // row (the solver's own tests check the fine-grid accuracy): measured 0.166 % on
+    // 2026-12-03; bound about 2.4×
+    assert!(worst < 0.004, "worst relative error {worst}");
     // noise: same seed, same file; another seed, another file
     let noisy = |seed: &str, name: &str| {
         let o = forward(
@@ -257,7 +258,21 @@ fn invert_writes_every_output_and_resumes_to_the_same_result() {
     // run's on the same (inversion) grid
     let pinn_chi2 = plain["judge"]["inversion_grid"]["chi2"].as_f64().unwrap();
     assert!((pinn_chi2 - r["pinn_chi2"].as_f64().unwrap()).abs() <= 1e-9 * pinn_chi2);
-    assert!(report["judge"]["inversion_grid"]["chi2"].as_f64().unwrap() <= pinn_chi2);
+    let refined = report["judge"]["inversion_grid"]["chi2"].as_f64().unwrap();
+    eprintln!(
+        "PINN alone χ² {pinn_chi2:.3}, refined {refined:.3}: {:.3} of it; refinement {r}",
+        refined / pinn_chi2
+    );
+    // the final model's χ², recomputed by the layer from the written model's grid, is
+    // the refinement's own last word on it
+    let own = r["refined_chi2"].as_f64().unwrap();
+    assert!((refined - own).abs() <= 1e-9 * own, "{refined} vs {own}");
+    // the refinement must do real work, not merely keep its start: measured 1.597 →
+    // 0.782 (0.49 of it, a 51 % cut) on 2026-12-03; bound a 25 % cut, about 2×
+    assert!(
+        refined <= 0.75 * pinn_chi2,
+        "refined χ² {refined} vs the PINN's {pinn_chi2}"
+    );
 }
 
 #[test]

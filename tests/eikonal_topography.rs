@@ -21,7 +21,8 @@ fn with_surface(spec: &slowfield::model::GridSpec, v: f64, surf: impl Fn(f64) ->
 /// again. With one velocity the fastest ground path is the two slopes through the
 /// valley floor (shortest path around a convex corner of the domain, elementary
 /// geometry): 67.08 m instead of the straight 59.9 m. The corner is resolved to first
-/// order in h; 1 % of the path is 1.3 cells of it at h = 0.25 m.
+/// order in h: measured within 0.26 % of the ground path at h = 0.25 m on 2026-12-03
+/// (0.26 % of the path is a third of a cell); bound 0.65 %, about 2.5×.
 #[test]
 fn valley_time_follows_the_ground() {
     let v = 1000.0;
@@ -32,6 +33,7 @@ fn valley_time_follows_the_ground() {
     let src = Point::new(20.1, surf(20.1));
     let f = solve(&spec, &s, src, &FmmOptions::default()).unwrap();
     let floor = Point::new(50.0, -25.0);
+    let mut worst = 0.0f64;
     for xr in [55.0, 70.0, 80.07, 99.0] {
         let r = Point::new(xr, surf(xr));
         let t = f.time_at(r).unwrap();
@@ -41,8 +43,14 @@ fn valley_time_follows_the_ground() {
             t > 1.05 * straight,
             "x={xr}: {t} s vs straight {straight} s"
         );
+        eprintln!(
+            "x={xr}: {:.4} % off the ground path, {:.5}× the straight line",
+            100.0 * (t - ground) / ground,
+            t / straight
+        );
+        worst = worst.max((t - ground).abs() / ground);
         assert!(
-            (t - ground).abs() < 0.01 * ground,
+            (t - ground).abs() < 0.0065 * ground,
             "x={xr}: {t} s vs ground path {ground} s"
         );
         // the ray stays in the ground and passes the valley floor
@@ -53,15 +61,21 @@ fn valley_time_follows_the_ground() {
             assert!(p.z <= surf(p.x) + h, "ray point {p:?} in the air");
         }
     }
+    eprintln!(
+        "valley: largest error against the ground path {:.4} %",
+        100.0 * worst
+    );
 }
 
 /// Receivers exactly on a sloping surface, between nodes, on the same straight slope as
 /// the source: the straight path lies in the ground, so T = r/v (constant velocity), and
-/// the slope nodes must not make the wave crawl along a staircase.
+/// the slope nodes must not make the wave crawl along a staircase: only rounding is
+/// left, measured 5.1e-13 (h = 0.5 m) and 1.6e-12 (h = 0.2 m) of the time on
+/// 2026-12-03; bounds about 2.5×.
 #[test]
 fn receivers_on_a_slope() {
     let v = 700.0;
-    for h in [0.5, 0.2] {
+    for (h, bound) in [(0.5, 1.3e-12), (0.2, 4e-12)] {
         let spec = grid(
             0.0,
             10.0,
@@ -73,16 +87,19 @@ fn receivers_on_a_slope() {
         let s = with_surface(&spec, v, surf);
         let src = Point::new(3.33, surf(3.33));
         let f = solve(&spec, &s, src, &FmmOptions::default()).unwrap();
+        let mut worst = 0.0f64;
         for k in 0..40 {
             let x = 4.0 + 1.37 * k as f64;
             let r = Point::new(x, surf(x));
             let t = f.time_at(r).unwrap();
             let exact = r.dist(&src) / v;
+            worst = worst.max((t - exact).abs() / exact);
             assert!(
-                (t - exact).abs() < 1e-9 * exact + 1e-12,
+                (t - exact).abs() < bound * exact,
                 "h={h} x={x}: {t} vs {exact}"
             );
         }
+        eprintln!("slope h={h}: largest relative error {worst:.2e}");
     }
 }
 

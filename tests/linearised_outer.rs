@@ -104,8 +104,15 @@ fn chi2_gradient_matches_differences() {
         a[k] += h;
         b[k] -= h;
         let fd = (lin.chi2_and_gradient(&a).0 - lin.chi2_and_gradient(&b).0) / (2.0 * h);
+        eprintln!(
+            "{k}: gradient {} vs differences {fd}: {:.2e}",
+            g[k],
+            (fd - g[k]).abs() / fd.abs().max(1.0)
+        );
+        // measured 7.2e-12 and 4.0e-11 on 2026-12-03 (rounding of the differences with
+        // h = 1e-6); bound about 2.5×
         assert!(
-            (fd - g[k]).abs() < 1e-6 * fd.abs().max(1.0),
+            (fd - g[k]).abs() < 1e-10 * fd.abs().max(1.0),
             "{k}: {fd} {}",
             g[k]
         );
@@ -131,7 +138,14 @@ fn a_too_long_step_is_shortened_not_accepted() {
     assert_eq!(h[2].step, 0.5);
     let accepted: Vec<f64> = h.iter().filter(|l| l.accepted).map(|l| l.chi2).collect();
     assert!(accepted.windows(2).all(|w| w[1] < w[0]), "{accepted:?}");
-    assert!(out.chi2_after() < 0.05 * out.chi2_before(), "{h:?}");
+    eprintln!(
+        "χ² {} → {}: {:.3e} of the start; {h:?}",
+        out.chi2_before(),
+        out.chi2_after(),
+        out.chi2_after() / out.chi2_before()
+    );
+    // measured 71.7 → 0.0157, 2.19e-4 of the start, on 2026-12-03; bound about 2.5×
+    assert!(out.chi2_after() < 5.5e-4 * out.chi2_before(), "{h:?}");
     assert_eq!(out.chi2_after(), *accepted.last().unwrap());
     // without step control the same inner solve would have kept the rising iterate
     // as its next start: the true χ² after the first step is what it would carry

@@ -50,12 +50,18 @@ fn ray_sensitivities_predict_the_change_of_fast_marching_times() {
     assert_eq!(traced, survey.picks.len(), "every ray traced");
     let s: Vec<f64> = base.v.iter().map(|v| 1.0 / v).collect();
     // uniform scaling: J·(ε·s) = ε·T, i.e. the ray sum equals the field's time, within
-    // the bound the ray tests hold at this spacing (tests/eikonal_rays.rs: 8 µs plus
-    // 1e-4 of the time)
+    // 8 µs plus 1e-4 of the time at this 0.5 m spacing (measured 7.3 µs at most on
+    // 2026-12-03, 0.85 of that bound at its pick: already tight, kept)
+    let (mut worst_sum, mut worst_share) = (0.0f64, 0.0f64);
     for (ray, t) in rays.iter().zip(&t_base) {
         let ts: f64 = ray.iter().map(|&(k, w)| w * s[k]).sum();
+        worst_sum = worst_sum.max((ts - t).abs());
+        worst_share = worst_share.max((ts - t).abs() / (8e-6 + 1e-4 * t));
         assert!((ts - t).abs() < 8e-6 + 1e-4 * t, "ray sum {ts} vs {t}");
     }
+    eprintln!(
+        "ray sums against the times: {worst_sum:.2e} s at most, {worst_share:.2} of the bound"
+    );
     // a local 2 % slow-down around (24 m, 4 m deep): predicted against recomputed
     let bump = |x: f64, z: f64| 0.02 * (-((x - 24.0).powi(2) + (z + 4.0).powi(2)) / 8.0).exp();
     let pert = VelocityGrid::from_fn(spec(), Some(&surf), |x, z| {
@@ -73,10 +79,13 @@ fn ray_sensitivities_predict_the_change_of_fast_marching_times() {
             big += 1;
         }
     }
+    // measured 32 on 2026-12-03
     assert!(big > 20, "the perturbation is seen by {big} picks");
     let rel = (num / den).sqrt();
     eprintln!("first-order prediction of the change: relative RMS error {rel:.4}");
-    assert!(rel < 0.1, "relative error of J·Δs {rel}");
+    // measured 0.0183 on 2026-12-03 (the second-order term of a 2 % change); bound
+    // about 2.5×
+    assert!(rel < 0.045, "relative error of J·Δs {rel}");
 }
 
 /// Truth: 400 + 40·depth with a 2 m thick 900 m/s slab from 6 m depth (a cemented
@@ -142,26 +151,34 @@ fn refinement_lowers_the_fast_marching_misfit_it_reports() {
     let (its, kept, _) = outer(&inv);
     let (before, after) = (its[0].chi2, its[kept].chi2);
     eprintln!(
-        "PINN χ² {before:.3} → refined {after:.3} (kept iteration {kept}); inversion grid {:.3}, judge {:.3}",
-        inv.judge.inversion_grid.chi2, inv.judge.misfit.chi2
+        "PINN χ² {before:.3} → refined {after:.3} (kept iteration {kept}); inversion grid {:.3}, judge {:.3}; iterations {:?}",
+        inv.judge.inversion_grid.chi2, inv.judge.misfit.chi2,
+        its.iter().map(|l| (l.chi2, l.accepted)).collect::<Vec<_>>()
     );
+    // measured 2.064 → 0.734, 0.36 of the PINN's, on 2026-12-03; bound about 2×
     assert!(after < 0.7 * before, "{its:?}");
-    // accepted steps never raise the χ², and the kept model is the best one seen
+    // accepted steps never raise the χ²
     let accepted: Vec<f64> = its.iter().filter(|l| l.accepted).map(|l| l.chi2).collect();
     assert!(accepted.windows(2).all(|w| w[1] < w[0]), "{its:?}");
-    assert!(its.iter().all(|c| c.chi2 >= after - 1e-12));
-    // the layer recomputes the kept model's times on the same grid on its own
-    let rel = (inv.judge.inversion_grid.chi2 - after).abs() / after;
+    // the model handed back is the best one seen: the layer recomputes its times on
+    // the same grid on its own, and that χ² must be the lowest of the iterations' (a
+    // layer that handed back the PINN's model, or any iterate but the lowest, fails
+    // here; measured: 2.064, 1.437, 0.734, all accepted, the target χ² = 1 reached)
+    let lowest = its.iter().map(|l| l.chi2).fold(f64::INFINITY, f64::min);
+    let rel = (inv.judge.inversion_grid.chi2 - lowest).abs() / lowest;
     assert!(
         rel < 1e-9,
-        "inversion grid {} vs refined {after}",
+        "inversion grid {} vs the lowest iteration {lowest}: {its:?}",
         inv.judge.inversion_grid.chi2
     );
     // the judge's finer grid agrees to within the discretisation, not exactly
+    let judge_rel = (inv.judge.misfit.chi2 - after) / after;
+    eprintln!("judge against refined: {:+.4} of it", judge_rel);
     assert!(inv.judge.misfit.chi2 != after);
+    // measured +0.0645 on 2026-12-03; bound about 2.5×
     assert!(
-        inv.judge.misfit.chi2 < 2.0 * after + 0.5,
-        "{}",
+        judge_rel.abs() < 0.16,
+        "judge {} vs refined {after}",
         inv.judge.misfit.chi2
     );
 }
