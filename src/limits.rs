@@ -43,7 +43,10 @@ mod tests {
     fn limits_say_what_was_asked_and_what_to_change() {
         assert!(grid(4000, 5000, "the grid", "use a larger cell").is_ok());
         let e = grid(4001, 5000, "the grid", "use a larger cell").unwrap_err();
-        assert!(e.contains("20005000") && e.contains("use a larger cell"), "{e}");
+        assert!(
+            e.contains("20005000") && e.contains("use a larger cell"),
+            "{e}"
+        );
         assert!(extent(100.0, 30.0, 0.1, "the model", "x").is_ok());
         let e = extent(100.0, 30.0, 1e-4, "the model", "give a larger cell").unwrap_err();
         assert!(e.contains("1e-4") || e.contains("0.0001"), "{e}");
