@@ -7,6 +7,7 @@ use rayon::prelude::*;
 
 use super::{fmt_coord, GridSpec, VelocityGrid};
 use crate::error::{read_text, InputError, InputErrors};
+use crate::limits;
 use crate::survey::{header_map, number, records};
 
 /// One node line of a model file: `(line, x, z, velocity)`.
@@ -38,7 +39,9 @@ impl VelocityGrid {
         }
         let recs = records(path, text)?;
         let Some(((hline, header), rows)) = recs.split_first() else {
-            return Err(InputError::file(path, "the file holds only comments").into());
+            return Err(InputError::file(path, "the file holds only comments")
+                .hint("add the header line 'x,z,velocity_mps' and one line per node")
+                .into());
         };
         let map = header_map(path, *hline, header, &["x", "z", "velocity_mps"])?;
         for req in ["x", "z", "velocity_mps"] {
@@ -53,21 +56,26 @@ impl VelocityGrid {
             }
         }
         if rows.is_empty() {
-            return Err(InputError::file(path, "the file has a header but no nodes").into());
+            return Err(InputError::file(path, "the file has a header but no nodes")
+                .hint("add one line per node below the header")
+                .into());
         }
         let mut errors = Vec::new();
         let mut nodes: Vec<NodeLine> = Vec::with_capacity(rows.len());
         for (line, f) in rows {
             if f.len() != header.len() {
-                errors.push(InputError::at(
-                    path,
-                    *line,
-                    format!(
-                        "this line has {} fields but the header has {}",
-                        f.len(),
-                        header.len()
-                    ),
-                ));
+                errors.push(
+                    InputError::at(
+                        path,
+                        *line,
+                        format!(
+                            "this line has {} fields but the header has {}",
+                            f.len(),
+                            header.len()
+                        ),
+                    )
+                    .hint("each line needs one value per header column, separated by commas"),
+                );
                 continue;
             }
             let r = (|| -> Result<(f64, f64, f64), InputError> {
@@ -93,13 +101,27 @@ impl VelocityGrid {
     }
 
     /// The grid from the node lines: regular axes, no node twice, no hole under the
-    /// ground.
+    /// ground. The grid's size is checked against [`limits::MAX_GRID_NODES`] and the
+    /// nodes' layout (duplicates, holes) before the grid is allocated, so that a few
+    /// lines far apart cannot make it allocate a huge, mostly empty grid.
     fn from_nodes(path: &Path, nodes: &[NodeLine]) -> Result<VelocityGrid, InputErrors> {
+        if nodes.len() > limits::MAX_GRID_NODES {
+            return Err(InputError::file(
+                path,
+                format!(
+                    "the file has {} node lines, more than the limit of {} nodes a grid may have",
+                    nodes.len(),
+                    limits::MAX_GRID_NODES
+                ),
+            )
+            .hint("give a coarser model (a larger node spacing) or a shorter section")
+            .into());
+        }
         let (ax, az) = rayon::join(
             || axis(path, nodes, |n| n.1, "x"),
             || axis(path, nodes, |n| n.2, "z"),
         );
-        let ((x0, dx, nx), (z0, dz, nz)) = (ax?, az?);
+        let ((x0, dx, nx, col), (z0, dz, nz, row)) = (ax?, az?);
         let spec = GridSpec {
             x0,
             z0,
@@ -108,51 +130,118 @@ impl VelocityGrid {
             nx,
             nz,
         };
+        limits::grid(
+            nx,
+            nz,
+            &format!(
+                "the model's grid (x from {} to {} m every {} m, z from {} to {} m every {} m)",
+                fmt_coord(spec.x0),
+                fmt_coord(spec.x_max()),
+                fmt_coord(dx),
+                fmt_coord(spec.z0),
+                fmt_coord(spec.z_max()),
+                fmt_coord(dz)
+            ),
+            "give a coarser model (a larger node spacing) or a shorter section",
+        )
+        .map_err(|m| {
+            InputError::file(path, m).hint("a node far from the others (a typing error in x or z) stretches the grid: check the smallest and largest x and z")
+        })?;
+        // Each column must hold the rows from the bottom up to its top node, each once.
+        // Any column that does not is looked at closely without allocating the grid.
+        let mut count = vec![0u32; nx];
+        let mut lowest = vec![u32::MAX; nx];
+        let mut top = vec![0u32; nx];
+        for (&i, &j) in col.iter().zip(&row) {
+            let i = i as usize;
+            count[i] += 1;
+            lowest[i] = lowest[i].min(j);
+            top[i] = top[i].max(j);
+        }
+        if (0..nx).any(|i| lowest[i] != 0 || count[i] != top[i] + 1) {
+            if let Some(e) = layout_error(path, nodes, &col, &row, spec) {
+                return Err(e.into());
+            }
+        }
+        // Every column now holds as many nodes as rows up to its top, from the bottom
+        // row: the layout is whole unless a node is given twice (then a row is missing).
         let mut v = vec![f64::NAN; spec.len()];
-        let mut line_of = vec![0u64; spec.len()];
-        for &(line, x, z, vel) in nodes {
-            let i = ((x - x0) / dx).round() as usize;
-            let j = ((z - z0) / dz).round() as usize;
-            let k = spec.idx(i, j);
+        for (n, &(_, _, _, vel)) in nodes.iter().enumerate() {
+            let k = spec.idx(col[n] as usize, row[n] as usize);
             if !v[k].is_nan() {
-                return Err(InputError::at(
-                    path,
-                    line,
-                    format!(
-                        "the node x={x} z={z} is given twice (also on line {})",
-                        line_of[k]
-                    ),
-                )
-                .hint("keep one line per node")
-                .into());
+                return Err(duplicate(path, nodes, &col, &row, n).into());
             }
             v[k] = vel;
-            line_of[k] = line;
-        }
-        // Air may only sit above the ground: no hole under a node that has velocity.
-        for i in 0..nx {
-            let mut seen_ground_above = None;
-            for j in (0..nz).rev() {
-                let k = spec.idx(i, j);
-                if !v[k].is_nan() {
-                    seen_ground_above = Some(line_of[k]);
-                } else if let Some(l) = seen_ground_above {
-                    return Err(InputError::at(
-                        path,
-                        l,
-                        format!(
-                            "the node x={} z={} is missing below this one",
-                            fmt_coord(spec.x(i)),
-                            fmt_coord(spec.z(j))
-                        ),
-                    )
-                    .hint("only nodes above the ground may be left out; give every node below the surface")
-                    .into());
-                }
-            }
         }
         Ok(VelocityGrid { spec, v })
     }
+}
+
+/// The error of a node given twice: node `n` repeats an earlier one.
+fn duplicate(path: &Path, nodes: &[NodeLine], col: &[u32], row: &[u32], n: usize) -> InputError {
+    let (line, x, z, _) = nodes[n];
+    let first = (0..n)
+        .find(|&m| col[m] == col[n] && row[m] == row[n])
+        .map_or(0, |m| nodes[m].0);
+    InputError::at(
+        path,
+        line,
+        format!("the node x={x} z={z} is given twice (also on line {first})"),
+    )
+    .hint("keep one line per node")
+}
+
+/// The first problem of the nodes' layout, found from the nodes alone (memory in
+/// proportion to the lines, not to the grid): the first line (in file order) that
+/// repeats a node, else the first column (from the left) with a node missing below
+/// a given one, named at the line of the node above the hole. `None` when the layout
+/// is whole.
+fn layout_error(
+    path: &Path,
+    nodes: &[NodeLine],
+    col: &[u32],
+    row: &[u32],
+    spec: GridSpec,
+) -> Option<InputError> {
+    // node indices by column, then row, then file order
+    let mut order: Vec<u32> = (0..nodes.len() as u32).collect();
+    order.sort_unstable_by_key(|&n| (col[n as usize], row[n as usize], n));
+    let at = |n: u32| (col[n as usize], row[n as usize]);
+    let repeat = order
+        .windows(2)
+        .filter(|w| at(w[0]) == at(w[1]))
+        .map(|w| w[1] as usize)
+        .min();
+    if let Some(n) = repeat {
+        return Some(duplicate(path, nodes, col, row, n));
+    }
+    // without repeats, each column's rows are distinct: walk them from the top down
+    let missing = |n: u32, j: u32| {
+        let i = col[n as usize] as usize;
+        InputError::at(
+            path,
+            nodes[n as usize].0,
+            format!(
+                "the node x={} z={} is missing below this one",
+                fmt_coord(spec.x(i)),
+                fmt_coord(spec.z(j as usize))
+            ),
+        )
+        .hint("only nodes above the ground may be left out; give every node below the surface")
+    };
+    for column in order.chunk_by(|&a, &b| col[a as usize] == col[b as usize]) {
+        for w in column.windows(2).rev() {
+            let (below, above) = (row[w[0] as usize], row[w[1] as usize]);
+            if below + 1 != above {
+                return Some(missing(w[1], above - 1));
+            }
+        }
+        let bottom = column[0];
+        if row[bottom as usize] > 0 {
+            return Some(missing(bottom, row[bottom as usize] - 1));
+        }
+    }
+    None
 }
 
 /// The node lines of a model file in the plain form files written by programs have —
@@ -179,8 +268,10 @@ fn plain_nodes(path: &Path, text: &str) -> Option<Vec<NodeLine>> {
     let mut pieces = Vec::with_capacity(n);
     let mut rest = body;
     for k in (1..n).rev() {
+        // a byte position, not necessarily a character boundary: the piece ends at the
+        // next line end after it
         let cut = rest.len() - rest.len() / (k + 1);
-        match rest[cut..].find('\n') {
+        match rest.as_bytes()[cut..].iter().position(|&b| b == b'\n') {
             Some(e) if cut > 0 => {
                 pieces.push(&rest[..cut + e]);
                 rest = &rest[cut + e + 1..];
@@ -231,42 +322,51 @@ fn plain_piece(text: &str, (ix, iz, iv): (usize, usize, usize)) -> Option<(Vec<N
 }
 
 /// Infers a regular axis (origin, spacing, count) from the distinct values of one
-/// coordinate, naming the value that breaks the pattern.
+/// coordinate, naming the value that breaks the pattern; with each node's place on
+/// the axis (its column or row).
 fn axis(
     path: &Path,
     nodes: &[NodeLine],
     get: impl Fn(&NodeLine) -> f64 + Sync,
     name: &str,
-) -> Result<(f64, f64, usize), InputError> {
-    let mut vals: Vec<(f64, u64)> = nodes.iter().map(|n| (get(n), n.0)).collect();
-    // equal values in file order (the lines increase), as a stable sort would leave them
+) -> Result<(f64, f64, usize, Vec<u32>), InputError> {
+    // (value, node index); equal values in file order, as a stable sort would leave them
+    let mut vals: Vec<(f64, u32)> = nodes
+        .iter()
+        .enumerate()
+        .map(|(n, node)| (get(node), n as u32))
+        .collect();
     vals.sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
     let span = vals[vals.len() - 1].0 - vals[0].0;
     let tol = 1e-6 * span.max(1.0);
-    let mut distinct: Vec<(f64, u64)> = Vec::new();
-    for (v, l) in vals {
+    // the distinct values with the node of each one's first appearance
+    let mut distinct: Vec<(f64, u32)> = Vec::new();
+    let mut place = vec![0u32; nodes.len()];
+    for (v, n) in vals {
         match distinct.last() {
             Some(&(d, _)) if (v - d).abs() <= tol => {}
-            _ => distinct.push((v, l)),
+            _ => distinct.push((v, n)),
         }
+        place[n as usize] = distinct.len() as u32 - 1;
     }
     if distinct.len() < 2 {
         return Err(InputError::file(
             path,
             format!("all nodes share one {name} value ({}): a model needs at least two columns and two rows", distinct[0].0),
-        ));
+        )
+        .hint("give the nodes of a regular grid, at least two columns and two rows of them"));
     }
     let d = distinct
         .windows(2)
         .map(|w| w[1].0 - w[0].0)
         .fold(f64::INFINITY, f64::min);
     let x0 = distinct[0].0;
-    for (k, &(v, line)) in distinct.iter().enumerate() {
+    for (k, &(v, n)) in distinct.iter().enumerate() {
         let expect = x0 + k as f64 * d;
         if (v - expect).abs() > 1e-4 * d {
             return Err(InputError::at(
                 path,
-                line,
+                nodes[n as usize].0,
                 format!(
                     "{name}={v} breaks the regular spacing of {} m inferred from the file (expected {name}={})",
                     fmt_coord(d),
@@ -277,7 +377,7 @@ fn axis(
             .hint("a model is a regular grid: every node on the same spacing with no column or row skipped"));
         }
     }
-    Ok((x0, d, distinct.len()))
+    Ok((x0, d, distinct.len(), place))
 }
 
 #[cfg(test)]

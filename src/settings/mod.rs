@@ -74,8 +74,25 @@ impl RunSettings {
     /// Parses settings text; `path` only names the source in errors.
     pub fn parse(path: &Path, text: &str) -> Result<RunSettings, InputError> {
         toml::from_str(text).map_err(|e| {
-            let line = e.span().map(|s| text[..s.start.min(text.len())].matches('\n').count() as u64 + 1);
-            let msg = e.message().to_string();
+            // counted in bytes: a span need not start on a character boundary
+            let line = e.span().map(|s| {
+                let upto = &text.as_bytes()[..s.start.min(text.len())];
+                upto.iter().filter(|&&b| b == b'\n').count() as u64 + 1
+            });
+            let mut msg = e.message().trim().to_string();
+            if msg.is_empty() {
+                // the TOML parser names no cause for some characters (a lone CR)
+                let at = e.span().map_or(text.len(), |s| s.start.min(text.len()));
+                let ch = text.as_bytes()[at..]
+                    .utf8_chunks()
+                    .next()
+                    .and_then(|c| c.valid().chars().next());
+                msg = match ch {
+                    Some('\r') => "a carriage return (CR) without a line feed: TOML lines end with LF or CRLF".into(),
+                    Some(c) => format!("not valid TOML at the character {c:?}"),
+                    None => "not valid TOML".into(),
+                };
+            }
             let err = match line {
                 Some(l) => InputError::at(path, l, msg),
                 None => InputError::file(path, msg),
@@ -147,5 +164,19 @@ mod tests {
         let m = e.to_string();
         assert!(m.starts_with("s.toml:4:"), "{m}");
         assert!(m.contains("stepz"), "{m}");
+    }
+
+    #[test]
+    fn a_lone_carriage_return_is_named() {
+        // the TOML parser gives this error no message of its own
+        let e = RunSettings::parse(Path::new("s.toml"), "sigma_ms = 1.0\n\r[pinn]\n").unwrap_err();
+        let m = e.to_string();
+        assert!(
+            m.starts_with("s.toml:2: a carriage return (CR) without a line feed"),
+            "{m}"
+        );
+        let e = RunSettings::parse(Path::new("s.toml"), "sigma_ms = \"é\r\"").unwrap_err();
+        assert!(e.to_string().starts_with("s.toml:1: "), "{e}");
+        assert!(!e.message.is_empty(), "{e}");
     }
 }

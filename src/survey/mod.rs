@@ -9,7 +9,9 @@ use std::path::Path;
 mod read;
 
 pub(crate) use read::{header_map, number, records};
-pub use read::{read_picks, read_picks_with_surface, read_surface};
+pub use read::{
+    parse_picks_text, parse_surface, read_picks, read_picks_with_surface, read_surface,
+};
 
 use crate::error::{InputError, InputErrors};
 

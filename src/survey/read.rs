@@ -26,7 +26,13 @@ const PICK_COLUMNS: [&str; 9] = [
 /// Every problem found is returned at once, each with its line and column.
 pub fn read_picks(path: &Path) -> Result<Survey, InputErrors> {
     let text = read_text(path, "picks")?;
-    let picks = parse_picks(path, &text)?;
+    parse_picks_text(path, &text)
+}
+
+/// Parses picks CSV text as [`read_picks`] reads a file; `path` only names the source
+/// in errors.
+pub fn parse_picks_text(path: &Path, text: &str) -> Result<Survey, InputErrors> {
+    let picks = parse_picks(path, text)?;
     let surface = stations_surface(&picks);
     Survey::assemble(path, picks, surface)
 }
@@ -41,6 +47,21 @@ pub fn read_picks_with_surface(path: &Path, surface: &Path) -> Result<Survey, In
 
 /// CSV records of a text with `#` comments, each with its 1-based line.
 pub(crate) fn records(path: &Path, text: &str) -> Result<Vec<(u64, Vec<String>)>, InputError> {
+    // A lone CR (old Mac line end) becomes LF: the csv reader ends a comment only at
+    // LF, so a comment in a CR-only file would swallow every line after it. One byte
+    // for one, so byte offsets and line numbers are those of the text as given.
+    let lone_cr = |b: &[u8], k: usize| b[k] == b'\r' && b.get(k + 1) != Some(&b'\n');
+    let unified;
+    let text = if (0..text.len()).any(|k| lone_cr(text.as_bytes(), k)) {
+        let b = text.as_bytes();
+        let lf: Vec<u8> = (0..b.len())
+            .map(|k| if lone_cr(b, k) { b'\n' } else { b[k] })
+            .collect();
+        unified = String::from_utf8(lf).expect("CR and LF are single bytes");
+        unified.as_str()
+    } else {
+        text
+    };
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(false)
         .flexible(true)
@@ -62,7 +83,8 @@ pub(crate) fn records(path: &Path, text: &str) -> Result<Vec<(u64, Vec<String>)>
         let mut l = starts.partition_point(|&s| s <= b).max(1);
         while l < starts.len() {
             let end = starts.get(l).copied().unwrap_or(text.len());
-            let t = text[starts[l - 1]..end].trim();
+            // skipped by the csv reader: empty lines and lines that start with '#'
+            let t = text[starts[l - 1]..end].trim_end_matches(['\r', '\n']);
             if !(t.is_empty() || t.starts_with('#')) {
                 break;
             }
@@ -75,6 +97,7 @@ pub(crate) fn records(path: &Path, text: &str) -> Result<Vec<(u64, Vec<String>)>
         let rec = rec.map_err(|e| {
             let line = e.position().map(|p| line_of(p.byte())).unwrap_or(0);
             InputError::at(path, line, format!("not readable as CSV: {e}"))
+                .hint("save the file as plain comma-separated text")
         })?;
         let line = rec.position().map(|p| line_of(p.byte())).unwrap_or(0);
         if rec.iter().all(|f| f.is_empty()) {
@@ -300,28 +323,43 @@ fn parse_picks(path: &Path, text: &str) -> Result<Vec<Pick>, InputErrors> {
 /// Reads a ground-surface file with columns `x,z` (metres).
 pub fn read_surface(path: &Path) -> Result<Surface, InputErrors> {
     let text = read_text(path, "surface")?;
+    parse_surface(path, &text)
+}
+
+/// Parses surface CSV text (`x,z`) as [`read_surface`] reads a file; `path` only names
+/// the source in errors.
+pub fn parse_surface(path: &Path, text: &str) -> Result<Surface, InputErrors> {
     if text.trim().is_empty() {
         return Err(InputError::file(path, "the file is empty")
             .hint("a surface file has the header 'x,z' and one line per vertex")
             .into());
     }
-    let recs = records(path, &text)?;
+    let recs = records(path, text)?;
     let Some(((hline, header), rows)) = recs.split_first() else {
-        return Err(InputError::file(path, "the file holds only comments").into());
+        return Err(InputError::file(path, "the file holds only comments")
+            .hint("add the header line 'x,z' and one line per vertex")
+            .into());
     };
     let map = header_map(path, *hline, header, &["x", "z"])?;
     if map.len() != 2 {
-        return Err(InputError::at(path, *hline, "the header must name both x and z").into());
+        return Err(
+            InputError::at(path, *hline, "the header must name both x and z")
+                .hint("write the header line 'x,z'")
+                .into(),
+        );
     }
     let mut pts = Vec::new();
     let mut errors = Vec::new();
     for (line, f) in rows {
         if f.len() != 2 {
-            errors.push(InputError::at(
-                path,
-                *line,
-                format!("this line has {} fields, expected 2", f.len()),
-            ));
+            errors.push(
+                InputError::at(
+                    path,
+                    *line,
+                    format!("this line has {} fields, expected 2", f.len()),
+                )
+                .hint("each line holds one vertex: x and z, separated by a comma"),
+            );
             continue;
         }
         match (
@@ -336,7 +374,11 @@ pub fn read_surface(path: &Path) -> Result<Surface, InputErrors> {
         return Err(InputErrors(errors));
     }
     if pts.is_empty() {
-        return Err(InputError::file(path, "the file has a header but no vertices").into());
+        return Err(
+            InputError::file(path, "the file has a header but no vertices")
+                .hint("add one line per vertex below the header")
+                .into(),
+        );
     }
     Ok(Surface::through(&pts))
 }
