@@ -189,3 +189,59 @@ fn state_round_trip_and_bit_exact_resume() {
     bytes.truncate(bytes.len() - 3);
     assert!(OuterState::from_bytes(&bytes).is_err());
 }
+
+/// An inner solver that fails, or stops early, is heard: a failure stops the loop with
+/// its message, an early stop is kept as a note with its iteration.
+#[test]
+fn inner_failures_and_early_stops_are_reported() {
+    struct Faulty(bool);
+    impl InnerProblem for Faulty {
+        fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String> {
+            Ok((p.iter().map(|s| 1.0 / s).collect(), 0.0))
+        }
+        fn solve(
+            &mut self,
+            p: &[f64],
+            _v: &[f64],
+            _lin: Linearisation,
+        ) -> Result<InnerSolution, String> {
+            if self.0 {
+                Err("the objective could not be evaluated".into())
+            } else {
+                Ok(InnerSolution {
+                    params: p.iter().map(|s| 0.5 * (s + 1.0)).collect(),
+                    predicted_chi2: f64::NAN,
+                    note: Some("line search gave up".into()),
+                })
+            }
+        }
+    }
+    let settings = OuterSettings {
+        iterations: 2,
+        chi2_target: 1e-9,
+        max_shortenings: 2,
+    };
+    let e = run(
+        &mut Faulty(true),
+        &mut Toy,
+        vec![0.6, 1.3],
+        &settings,
+        1,
+        None,
+        &mut Quiet,
+    )
+    .unwrap_err();
+    assert!(e.contains("could not be evaluated"), "{e}");
+    let out = run(
+        &mut Faulty(false),
+        &mut Toy,
+        vec![0.6, 1.3],
+        &settings,
+        1,
+        None,
+        &mut Quiet,
+    )
+    .unwrap();
+    assert_eq!(out.notes.len(), 2, "{:?}", out.notes);
+    assert_eq!(out.notes[0], (0, "line search gave up".to_string()));
+}
