@@ -93,6 +93,7 @@ fn a_model_file_cannot_make_the_reader_allocate_a_grid_it_cannot_fill() {
             "{e}"
         );
         assert!(peak < 16 * MB, "allocated {peak} bytes to refuse it");
+        println!("4e8-node L (row on top: {row_on_top}): refused, peak {peak} bytes");
     }
 
     // 4000 × 4000 = 1.6·10⁷ nodes (within the limit) named by 7999 lines, with the
@@ -107,6 +108,7 @@ fn a_model_file_cannot_make_the_reader_allocate_a_grid_it_cannot_fill() {
         "{e}"
     );
     assert!(peak < 16 * MB, "allocated {peak} bytes to refuse it");
+    println!("1.6e7-node L with holes: refused, peak {peak} bytes");
 
     // The same L with the row at the bottom is a whole model (air above the row): the
     // grid is allocated, and the counter sees it.
@@ -119,4 +121,5 @@ fn a_model_file_cannot_make_the_reader_allocate_a_grid_it_cannot_fill() {
         peak >= 1000 * 1000 * 8,
         "the grid's 8 MB were not counted: {peak}"
     );
+    println!("1e6-node whole L: read, peak {peak} bytes");
 }
