@@ -1,20 +1,13 @@
 //! The `forward` and `invert` commands end to end, on small synthetic lines made here.
 
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::Output;
 
 use slowfield::analytic::gradient_time;
 
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_slowfield"))
-}
+use common::slowfield as run;
 
-fn run(args: &[&str], dir: &Path) -> Output {
-    let out = bin().args(args).current_dir(dir).output().unwrap();
-    let err = String::from_utf8_lossy(&out.stderr);
-    assert!(!err.contains("panicked"), "panic: {err}");
-    out
-}
+mod common;
 
 /// `forward` through `model.csv` for the geometry of `picks` into `out`, plus `extra`.
 fn forward(dir: &Path, picks: &str, out: &str, extra: &[&str]) -> Output {

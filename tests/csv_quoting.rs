@@ -4,14 +4,11 @@
 //! every inversion leaves them out, saying so.
 
 use std::path::Path;
-use std::process::{Command, Output};
+use std::process::Output;
 
+/// Runs `slowfield ARGS` in `dir`, which must succeed.
 fn run(args: &[&str], dir: &Path) -> Output {
-    let out = Command::new(env!("CARGO_BIN_EXE_slowfield"))
-        .args(args)
-        .current_dir(dir)
-        .output()
-        .unwrap();
+    let out = common::slowfield(args, dir);
     assert!(
         out.status.success(),
         "{}",
@@ -19,6 +16,8 @@ fn run(args: &[&str], dir: &Path) -> Output {
     );
     out
 }
+
+mod common;
 
 fn shots_of(path: &Path) -> Vec<String> {
     let mut r = csv::ReaderBuilder::new()

@@ -7,21 +7,14 @@
 //! refinement.
 
 use std::path::Path;
-use std::process::{Child, Command, Output, Stdio};
+use std::process::{Child, Output, Stdio};
 use std::time::{Duration, Instant};
 
 use slowfield::linearised::OuterState;
 
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_slowfield"))
-}
+use common::{bin, slowfield as run};
 
-fn run(args: &[&str], dir: &Path) -> Output {
-    let out = bin().args(args).current_dir(dir).output().unwrap();
-    let err = String::from_utf8_lossy(&out.stderr);
-    assert!(!err.contains("panicked"), "panic: {err}");
-    out
-}
+mod common;
 
 fn stderr(o: &Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()

@@ -3,7 +3,7 @@
 //! an abort or a backtrace, and nothing written.
 
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::Output;
 
 fn demo(name: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))
@@ -11,19 +11,9 @@ fn demo(name: &str) -> PathBuf {
         .join(name)
 }
 
-fn run(args: &[&str], dir: &Path) -> Output {
-    let out = Command::new(env!("CARGO_BIN_EXE_slowfield"))
-        .args(args)
-        .current_dir(dir)
-        .output()
-        .unwrap();
-    let err = String::from_utf8_lossy(&out.stderr);
-    assert!(
-        !err.contains("panicked") && !err.contains("memory allocation"),
-        "{err}"
-    );
-    out
-}
+use common::slowfield as run;
+
+mod common;
 
 fn refused(o: &Output, words: &[&str]) {
     assert_eq!(o.status.code(), Some(1), "{o:?}");

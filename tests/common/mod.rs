@@ -1,4 +1,5 @@
-//! Helpers shared by the eikonal tests.
+//! Helpers shared by the tests: grids and analytic errors for the eikonal tests, small
+//! spreads with synthetic picks, and the `slowfield` binary for the command tests.
 #![allow(dead_code)]
 
 use slowfield::analytic::gradient_time;
@@ -102,4 +103,20 @@ pub fn noisy_picks(
     seed: u64,
 ) -> slowfield::survey::Survey {
     slowfield::synthetic::picks(geometry, truth, 0.25, 5e-4, seed).unwrap()
+}
+
+/// The `slowfield` binary of this build.
+pub fn bin() -> std::process::Command {
+    std::process::Command::new(env!("CARGO_BIN_EXE_slowfield"))
+}
+
+/// Runs `slowfield ARGS` in `dir`; whatever the outcome, it must not panic or abort.
+pub fn slowfield(args: &[&str], dir: &std::path::Path) -> std::process::Output {
+    let out = bin().args(args).current_dir(dir).output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        !err.contains("panicked") && !err.contains("memory allocation"),
+        "panic or abort: {err}"
+    );
+    out
 }
