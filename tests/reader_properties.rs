@@ -258,28 +258,28 @@ fn settings_path() -> &'static Path {
     Path::new("site 1/settings.toml")
 }
 
-fn model_holds(text: &str) -> Result<(), TestCaseError> {
+fn model_holds(text: &str) -> Result<bool, TestCaseError> {
     match VelocityGrid::parse(model_path(), text) {
-        Ok(m) => model_is_sane(&m, text),
-        Err(e) => refusals_are_located(model_path(), text, &e.0),
+        Ok(m) => model_is_sane(&m, text).map(|_| true),
+        Err(e) => refusals_are_located(model_path(), text, &e.0).map(|_| false),
     }
 }
 
-fn picks_hold(text: &str) -> Result<(), TestCaseError> {
+fn picks_hold(text: &str) -> Result<bool, TestCaseError> {
     match parse_picks_text(picks_path(), text) {
-        Ok(s) => survey_is_sane(&s, text),
-        Err(e) => refusals_are_located(picks_path(), text, &e.0),
+        Ok(s) => survey_is_sane(&s, text).map(|_| true),
+        Err(e) => refusals_are_located(picks_path(), text, &e.0).map(|_| false),
     }
 }
 
-fn surface_holds(text: &str) -> Result<(), TestCaseError> {
+fn surface_holds(text: &str) -> Result<bool, TestCaseError> {
     match parse_surface(surface_path(), text) {
-        Ok(s) => surface_is_sane(&s),
-        Err(e) => refusals_are_located(surface_path(), text, &e.0),
+        Ok(s) => surface_is_sane(&s).map(|_| true),
+        Err(e) => refusals_are_located(surface_path(), text, &e.0).map(|_| false),
     }
 }
 
-fn settings_hold(text: &str) -> Result<(), TestCaseError> {
+fn settings_hold(text: &str) -> Result<bool, TestCaseError> {
     match RunSettings::parse(settings_path(), text) {
         Ok(s) => {
             // what the run writes back reads back the same
@@ -288,9 +288,9 @@ fn settings_hold(text: &str) -> Result<(), TestCaseError> {
                 .map_err(|e| TestCaseError::fail(format!("written settings refused: {e}")))?;
             prop_assert_eq!(back.to_toml(), written);
             let _ = s.validate();
-            Ok(())
+            Ok(true)
         }
-        Err(e) => refusals_are_located(settings_path(), text, &[e]),
+        Err(e) => refusals_are_located(settings_path(), text, &[e]).map(|_| false),
     }
 }
 
@@ -867,7 +867,7 @@ fn arbitrary_text_never_panics_and_every_refusal_is_located() {
         model_holds(&t)?;
         picks_hold(&t)?;
         surface_holds(&t)?;
-        settings_hold(&t)
+        settings_hold(&t).map(|_| ())
     });
 }
 
@@ -887,7 +887,7 @@ fn csv_noise_under_a_valid_header() {
         let t = format!("{h}\n{b}");
         model_holds(&t)?;
         picks_hold(&t)?;
-        surface_holds(&t)
+        surface_holds(&t).map(|_| ())
     });
 }
 
@@ -929,37 +929,46 @@ fn edits() -> impl Strategy<Value = Vec<Edit>> {
 
 #[test]
 fn edited_model_files() {
+    let seen = Outcomes::default();
     check("edited model", edits(), |e| {
-        model_holds(&apply(&good_model_text(), &e, ','))
+        seen.note(model_holds(&apply(&good_model_text(), &e, ',')))
     });
+    seen.both("edited model");
 }
 
 #[test]
 fn edited_picks_files() {
+    let seen = Outcomes::default();
     check("edited picks", edits(), |e| {
-        picks_hold(&apply(&good_picks_text(), &e, ','))
+        seen.note(picks_hold(&apply(&good_picks_text(), &e, ',')))
     });
+    seen.both("edited picks");
 }
 
 #[test]
 fn edited_surface_files() {
+    let seen = Outcomes::default();
     check("edited surface", edits(), |e| {
-        surface_holds(&apply(&good_surface_text(), &e, ','))
+        seen.note(surface_holds(&apply(&good_surface_text(), &e, ',')))
     });
+    seen.both("edited surface");
 }
 
 #[test]
 fn edited_settings_files() {
     let texts = settings_texts();
+    let seen = Outcomes::default();
     check("edited settings", (0..texts.len(), edits()), |(k, e)| {
         // fields of a TOML line: key and value
-        settings_hold(&apply(&texts[k], &e, '='))
+        seen.note(settings_hold(&apply(&texts[k], &e, '=')))
     });
+    seen.both("edited settings");
 }
 
 #[test]
 fn edited_files_with_bad_bytes_through_files() {
     let scratch = Scratch::new();
+    let seen = Outcomes::default();
     let texts = [
         ("model.csv", good_model_text()),
         ("picks.csv", good_picks_text()),
@@ -974,26 +983,57 @@ fn edited_files_with_bad_bytes_through_files() {
             let bytes = apply_bytes(&apply(text, &e, if k == 3 { '=' } else { ',' }), &b);
             let t = bytes_text(&bytes);
             let p = scratch.write(name, &bytes);
-            match k {
+            seen.note(match k {
                 0 => match VelocityGrid::read(&p) {
-                    Ok(m) => model_is_sane(&m, &t),
-                    Err(e) => refusals_are_located(&p, &t, &e.0),
+                    Ok(m) => model_is_sane(&m, &t).map(|_| true),
+                    Err(e) => refusals_are_located(&p, &t, &e.0).map(|_| false),
                 },
                 1 => match slowfield::survey::read_picks(&p) {
-                    Ok(s) => survey_is_sane(&s, &t),
-                    Err(e) => refusals_are_located(&p, &t, &e.0),
+                    Ok(s) => survey_is_sane(&s, &t).map(|_| true),
+                    Err(e) => refusals_are_located(&p, &t, &e.0).map(|_| false),
                 },
                 2 => match slowfield::survey::read_surface(&p) {
-                    Ok(s) => surface_is_sane(&s),
-                    Err(e) => refusals_are_located(&p, &t, &e.0),
+                    Ok(s) => surface_is_sane(&s).map(|_| true),
+                    Err(e) => refusals_are_located(&p, &t, &e.0).map(|_| false),
                 },
                 _ => match RunSettings::read(&p) {
-                    Ok(_) => Ok(()),
-                    Err(e) => refusals_are_located(&p, &t, &[e]),
+                    Ok(_) => Ok(true),
+                    Err(e) => refusals_are_located(&p, &t, &[e]).map(|_| false),
                 },
-            }
+            })
         },
     );
+    seen.both("edited files with bad bytes");
+}
+
+/// How many edited inputs a reader accepted and refused: a property over edits that
+/// only ever saw one of the two would check half of what it claims.
+#[derive(Default)]
+struct Outcomes {
+    accepted: AtomicU64,
+    refused: AtomicU64,
+}
+
+impl Outcomes {
+    fn note(&self, r: Result<bool, TestCaseError>) -> Result<(), TestCaseError> {
+        let accepted = r?;
+        let n = if accepted {
+            &self.accepted
+        } else {
+            &self.refused
+        };
+        n.fetch_add(1, Ordering::Relaxed);
+        Ok(())
+    }
+
+    fn both(&self, name: &str) {
+        let (a, r) = (
+            self.accepted.load(Ordering::Relaxed),
+            self.refused.load(Ordering::Relaxed),
+        );
+        eprintln!("{name}: {a} accepted, {r} refused");
+        assert!(a > 0 && r > 0, "{name}: {a} accepted, {r} refused");
+    }
 }
 
 // ---------------------------------------------------------------------------------
