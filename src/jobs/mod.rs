@@ -132,14 +132,8 @@ pub fn picks_csv(
     residuals: bool,
 ) -> anyhow::Result<Vec<u8>> {
     let mut w = csv::Writer::from_writer(Vec::with_capacity(64 * times.len()));
-    let mut header = vec![
-        "shot",
-        "source_x",
-        "source_z",
-        "receiver_x",
-        "receiver_z",
-        "time_ms",
-    ];
+    let mut header = survey::GEOMETRY_COLUMNS.to_vec();
+    header.push("time_ms");
     if sigma.is_some() {
         header.push("sigma_ms");
     }
@@ -148,14 +142,8 @@ pub fn picks_csv(
     }
     w.write_record(&header)?;
     for (k, p) in survey.picks.iter().enumerate() {
-        let mut rec = vec![
-            p.shot.clone(),
-            p.source.x.to_string(),
-            p.source.z.to_string(),
-            p.receiver.x.to_string(),
-            p.receiver.z.to_string(),
-            format!("{:.4}", times[k] * 1e3),
-        ];
+        let mut rec = p.geometry_fields();
+        rec.push(format!("{:.4}", times[k] * 1e3));
         if let Some(sg) = sigma {
             rec.push(format!("{:.4}", sg[k] * 1e3));
         }

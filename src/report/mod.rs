@@ -361,34 +361,21 @@ pub fn write_run(
 pub fn fit_csv(problem: &Problem, inv: &Inversion) -> anyhow::Result<Vec<u8>> {
     let mut w = csv::Writer::from_writer(Vec::new());
     let own = inv.own_fit.as_ref();
-    let mut header = vec![
-        "shot",
-        "source_x",
-        "source_z",
-        "receiver_x",
-        "receiver_z",
-        "observed_ms",
-        "predicted_ms",
-        "residual_ms",
-        "sigma_ms",
-    ];
+    let mut header = crate::survey::GEOMETRY_COLUMNS.to_vec();
+    header.extend(["observed_ms", "predicted_ms", "residual_ms", "sigma_ms"]);
     if own.is_some() {
         header.push("network_ms");
     }
     w.write_record(&header)?;
     for (k, p) in problem.survey.picks.iter().enumerate() {
         let t = inv.judge.times[k];
-        let mut rec = vec![
-            p.shot.clone(),
-            p.source.x.to_string(),
-            p.source.z.to_string(),
-            p.receiver.x.to_string(),
-            p.receiver.z.to_string(),
+        let mut rec = p.geometry_fields();
+        rec.extend([
             format!("{:.4}", p.time * 1e3),
             format!("{:.4}", t * 1e3),
             format!("{:.4}", (p.time - t) * 1e3),
             format!("{:.4}", problem.sigma_s[k] * 1e3),
-        ];
+        ]);
         if let Some(o) = own {
             rec.push(format!("{:.4}", o.times[k] * 1e3));
         }

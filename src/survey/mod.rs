@@ -52,7 +52,23 @@ pub struct Pick {
     pub line: u64,
 }
 
+/// The columns that give a pick's geometry, first in every picks-like table the tool
+/// writes.
+pub const GEOMETRY_COLUMNS: [&str; 5] =
+    ["shot", "source_x", "source_z", "receiver_x", "receiver_z"];
+
 impl Pick {
+    /// The fields of [`GEOMETRY_COLUMNS`] for this pick, as written.
+    pub fn geometry_fields(&self) -> Vec<String> {
+        vec![
+            self.shot.clone(),
+            self.source.x.to_string(),
+            self.source.z.to_string(),
+            self.receiver.x.to_string(),
+            self.receiver.z.to_string(),
+        ]
+    }
+
     /// Source–receiver distance, m.
     pub fn offset(&self) -> f64 {
         self.source.dist(&self.receiver)
