@@ -52,7 +52,7 @@ fn small(steps: usize, threads: usize) -> PinnSettings {
         tau_depth: 3,
         vel_width: 12,
         vel_depth: 2,
-        collocation: 256,
+        collocation: Some(256),
         pick_batch: 16,
         eval_every: 10,
         checkpoint_every: 20,
@@ -91,7 +91,7 @@ fn same_seed_is_bit_identical_for_any_thread_count() {
     let (picks, domain, start) = survey();
     // 600 collocation points in shards of 256: three shards, run in parallel
     let sharded = |threads| PinnSettings {
-        collocation: 600,
+        collocation: Some(600),
         shard_points: 256,
         ..small(40, threads)
     };

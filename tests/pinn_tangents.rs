@@ -247,7 +247,7 @@ fn time_gradient_matches_central_differences_after_training() {
             tau_depth: 3,
             vel_width: 16,
             vel_depth: 2,
-            collocation: 256,
+            collocation: Some(256),
             dim,
             fast_tanh: true,
             ..Default::default()

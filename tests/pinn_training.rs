@@ -99,7 +99,7 @@ fn pinn_as_forward_solver_matches_constant_gradient_times() {
         train_velocity: false,
         data_weight: 0.0,
         steps: 1500,
-        collocation: 1024,
+        collocation: Some(1024),
         ..Default::default()
     };
     // step 0: τ = 1, the factor's closed form (Fomel, Luo & Zhao 2009, eq. 20)
@@ -185,7 +185,7 @@ fn pinn_inversion_recovers_a_gradient_ground() {
         let settings = PinnSettings {
             dim,
             steps: 2000,
-            collocation: 1024,
+            collocation: Some(1024),
             ..Default::default()
         };
         let out = train(&picks, &domain, &start, &settings, None, &mut Print(100)).unwrap();

@@ -826,7 +826,7 @@ fn good_surface_text() -> String {
 /// A short settings file and the whole one a run writes.
 fn settings_texts() -> Vec<String> {
     vec![
-        "method = \"pinn\"\nsigma_ms = 0.8\ncell_m = 0.5\n# comment\n[pinn]\nsteps = 200\nactivation = \"sine\"\nseed = 7\nv_max = 4000.0\n\n[refine]\niterations = 2\nregulariser = \"total_variation\"\n".to_string(),
+        "method = \"pinn\"\nsigma_ms = 0.8\ncell_m = 0.5\nv_max = 4000.0\n# comment\n[pinn]\nsteps = 200\nactivation = \"sine\"\nseed = 7\n\n[refine]\niterations = 2\nregulariser = \"total_variation\"\n".to_string(),
         RunSettings::default().to_toml(),
     ]
 }

@@ -67,3 +67,23 @@ fn a_run_that_fits_is_not_flagged() {
     assert!(inv.judge.misfit.chi2 < 1.5);
     assert!(inv.warnings.is_empty(), "{:?}", inv.warnings);
 }
+
+#[test]
+fn a_velocity_bound_below_the_rock_is_flagged() {
+    // 700 m/s over 2000 m/s at 4 m, inverted with v_max = 1600 m/s: the rock cannot
+    // take its velocity and the section piles up at the bound
+    let survey = site(|_, d| if d < 4.0 { 700.0 } else { 2000.0 });
+    let mut s = settings(2, 1500, 2);
+    s.v_max = Some(1600.0);
+    let problem = Problem::new(survey, &s);
+    let inv = inversion::run(&problem, &s, Resume::default(), &mut Silent).unwrap();
+    eprintln!(
+        "v_max below the rock: judge χ² {:.2}; warnings {:?}",
+        inv.judge.misfit.chi2, inv.warnings
+    );
+    assert!(
+        inv.warnings.iter().any(|w| w.contains("upper bound v_max = 1600")),
+        "{:?}",
+        inv.warnings
+    );
+}

@@ -71,7 +71,7 @@ fn cpu_seconds() -> f64 {
 fn time_steps(n: usize, threads: usize, fast_tanh: bool, steps: usize) -> (f64, f64) {
     let (picks, domain, start) = survey();
     let s = PinnSettings {
-        collocation: n,
+        collocation: Some(n),
         threads,
         fast_tanh,
         steps,

@@ -8,7 +8,10 @@
 //! reads or writes files or talks to a terminal: progress goes to one [`Observer`],
 //! and the jobs write the result.
 
+mod derive;
 mod pinn;
+
+pub use derive::{Choice, SurveyScales};
 
 use std::time::Instant;
 
@@ -43,6 +46,8 @@ pub struct Problem {
     pub cell_m: f64,
     /// The judge's cell: half the inversion's, m.
     pub judge_cell_m: f64,
+    /// The survey's scales, from which open settings are derived.
+    pub scales: SurveyScales,
 }
 
 impl Problem {
@@ -75,6 +80,7 @@ impl Problem {
             .fold(f64::INFINITY, f64::min);
         let grid = GridSpec::covering(x0, x1, zlow - depth_m, survey.surface.highest(), cell_m);
         Problem {
+            scales: SurveyScales::of(&survey),
             survey,
             zero_offset,
             sigma_s,
@@ -281,6 +287,11 @@ pub struct Inversion {
     /// Reasons not to trust the section, each with what to try; empty when the
     /// judge finds nothing wrong.
     pub warnings: Vec<String>,
+    /// The settings the method ran with: the run's, every open value derived from
+    /// the survey (what a repeat of the run with these settings would do).
+    pub settings: RunSettings,
+    /// The settings derived from the survey or given, each with its rule.
+    pub choices: Vec<Choice>,
     /// Wall-clock seconds of the whole inversion, the judge included.
     pub seconds: f64,
 }
@@ -317,6 +328,8 @@ pub fn run(
     let t0 = Instant::now();
     settings.validate().map_err(InversionError::Setting)?;
     problem.check_size().map_err(InversionError::Setting)?;
+    let (resolved, choices) = derive::resolve(problem, settings);
+    let settings = &resolved;
     let fitted = match settings.method {
         Method::Pinn => pinn::run(problem, settings, resume, observer)?,
     };
@@ -330,7 +343,13 @@ pub fn run(
     }
     let judge = judge(problem, &fitted.model)?;
     let coverage = coverage(problem, &fitted.model)?;
-    let warnings = trust(settings, &judge, fitted.own_fit.as_ref());
+    let warnings = trust(
+        settings,
+        &judge,
+        fitted.own_fit.as_ref(),
+        &fitted.model,
+        &coverage,
+    );
     Ok(Inversion {
         method: settings.method,
         label: fitted.label,
@@ -342,6 +361,8 @@ pub fn run(
         detail: fitted.detail,
         notes: fitted.notes,
         warnings,
+        settings: resolved.clone(),
+        choices,
         seconds: t0.elapsed().as_secs_f64(),
     })
 }
@@ -350,10 +371,53 @@ pub fn run(
 /// uncertainty (common practice: a reduced χ² near 1 is a fit, 2 is not).
 pub const CHI2_UNTRUSTED: f64 = 2.0;
 
+/// Share of the inversion grid's χ² by which the judge's may differ before the section
+/// is said to depend on its grid (issue text: "more than a third").
+pub const GRID_DEPENDENCE: f64 = 1.0 / 3.0;
+/// Share of the covered section at a velocity bound above which the bound, not the
+/// picks, shaped the section.
+pub const AT_BOUND_SHARE: f64 = 0.1;
+/// How near a bound a node counts as at it, as a share of `v_max − v_min`.
+pub const AT_BOUND_BAND: f64 = 0.01;
+
 /// Why the section should not be trusted, as the judge sees it, with what to try.
-fn trust(settings: &RunSettings, judge: &Judgement, own: Option<&OwnFit>) -> Vec<String> {
+fn trust(
+    settings: &RunSettings,
+    judge: &Judgement,
+    own: Option<&OwnFit>,
+    model: &VelocityGrid,
+    coverage: &Coverage,
+) -> Vec<String> {
     let mut out = Vec::new();
     let j = judge.misfit.chi2;
+    let g = judge.inversion_grid.chi2;
+    if (j - g).abs() > GRID_DEPENDENCE * g {
+        out.push(format!(
+            "the section's fit depends on the grid it is solved on: χ² {j:.2} on the judge's {} m grid against {g:.2} on the inversion's own grid; the model holds features near the cell size (speckle, thin spikes) that no grid resolves reliably — do not read detail at that scale; try a smaller cell_m, or a larger refine.detail_wavelength_m or reg_weight for a smoother section",
+            judge.cell_m
+        ));
+    }
+    let (lo, hi) = (settings.pinn.v_min, settings.pinn.v_max);
+    let band = AT_BOUND_BAND * (hi - lo);
+    let covered: Vec<f64> = (0..model.v.len())
+        .filter(|&k| coverage.covered[k] && !model.is_air(k))
+        .map(|k| model.v[k])
+        .collect();
+    let n = covered.len().max(1) as f64;
+    let at_max = covered.iter().filter(|&&v| v >= hi - band).count() as f64 / n;
+    let at_min = covered.iter().filter(|&&v| v <= lo + band).count() as f64 / n;
+    if at_max > AT_BOUND_SHARE {
+        out.push(format!(
+            "the velocity sits at the upper bound v_max = {hi:.0} m/s over {:.0} % of the ray-covered section: the bound, not the picks, shaped it there; raise v_max (or leave it out to derive it from the picks)",
+            100.0 * at_max
+        ));
+    }
+    if at_min > AT_BOUND_SHARE {
+        out.push(format!(
+            "the velocity sits at the lower bound v_min = {lo:.0} m/s over {:.0} % of the ray-covered section: the bound, not the picks, shaped it there; lower v_min (or leave it out to derive it from the picks)",
+            100.0 * at_min
+        ));
+    }
     if j.is_nan() || j > CHI2_UNTRUSTED {
         out.push(format!(
             "the section does not explain the picks: the fast-marching check gives χ² {j:.2} (RMS {:.2} ms), above {CHI2_UNTRUSTED}; do not use it before the misfit is understood — check the picks' σ (sigma_ms) and the outliers `slowfield check` lists, then try more training steps or refinement iterations",

@@ -135,10 +135,10 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
         s.sigma_ms = v;
     }
     if let Some(v) = o.v_min {
-        s.pinn.v_min = v;
+        s.v_min = Some(v);
     }
     if let Some(v) = o.v_max {
-        s.pinn.v_max = v;
+        s.v_max = Some(v);
     }
     if let Some(kind) = o.regulariser {
         // both stages: the refinement's regulariser shapes the model that is reported

@@ -66,6 +66,10 @@ impl GridSpec {
     pub fn x_max(&self) -> f64 {
         self.x(self.nx.saturating_sub(1))
     }
+    /// Width from the first column to the last, m.
+    pub fn width(&self) -> f64 {
+        self.x_max() - self.x0
+    }
     /// z of the top row.
     pub fn z_max(&self) -> f64 {
         self.z(self.nz.saturating_sub(1))

@@ -50,7 +50,7 @@ impl Detail {
     pub(super) fn new(domain: &Domain, refine: &RefineSettings, pinn: &PinnSettings) -> Detail {
         let mut rng = ChaCha8Rng::seed_from_u64(pinn.seed);
         rng.set_stream(FREQ_STREAM);
-        let scale = 1.0 / refine.detail_wavelength_m;
+        let scale = 1.0 / refine.detail_wavelength();
         let one_d = pinn.dim == 1;
         let freqs = (0..refine.detail_features)
             .map(|_| {
@@ -160,7 +160,7 @@ mod tests {
     fn refine() -> RefineSettings {
         RefineSettings {
             detail_features: 16,
-            detail_wavelength_m: 8.0,
+            detail_wavelength_m: Some(8.0),
             detail_width: 8,
             detail_depth: 2,
             ..RefineSettings::default()

@@ -77,6 +77,8 @@ impl StartModel {
 #[derive(Clone, Debug)]
 pub(crate) struct Frame {
     pub xc: f64,
+    /// horizontal length of one input unit: half the domain's width, or less on long
+    /// lines (so that a metre means as much to the networks on any line)
     pub hx: f64,
     pub zc: f64,
     pub hz: f64,
@@ -98,7 +100,16 @@ impl Frame {
     /// start model's velocity at the ground with the start model's mean gradient down
     /// to the depth where it first reaches its largest velocity (for a gradient start,
     /// its gradient; never negative).
-    pub fn new(domain: &Domain, start: &StartModel, v_min: f64, v_max: f64) -> Frame {
+    ///
+    /// `x_unit` is the horizontal length of one input unit (at most half the domain's
+    /// width; `None`: half the width, inputs in about `[-1, 1]`).
+    pub fn new(
+        domain: &Domain,
+        start: &StartModel,
+        v_min: f64,
+        v_max: f64,
+        x_unit: Option<f64>,
+    ) -> Frame {
         let zt = domain.z_top();
         let v_top = start.velocity(0.0).clamp(v_min, v_max);
         let g = match start {
@@ -116,7 +127,10 @@ impl Frame {
         };
         Frame {
             xc: 0.5 * (domain.x_min + domain.x_max),
-            hx: 0.5 * (domain.x_max - domain.x_min),
+            hx: {
+                let half = 0.5 * (domain.x_max - domain.x_min);
+                x_unit.map_or(half, |u| u.min(half))
+            },
             zc: 0.5 * (zt + domain.z_bottom),
             hz: 0.5 * (zt - domain.z_bottom),
             hd: 0.5 * domain.max_depth(),

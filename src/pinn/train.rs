@@ -258,7 +258,7 @@ fn train_step(ctx: &Ctx, state: &mut State, ad: &Device) -> Result<Option<StepLo
     let pairs = ctx.sampler.draw(
         &mut rng,
         &model.domain,
-        s.collocation,
+        s.collocation(),
         s.ray_fraction,
         s.ray_sag,
     );

@@ -84,6 +84,7 @@ pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
         ("lr_half_life", s.lr_half_life),
         ("adam_eps", s.adam_eps),
         ("vel_input_scale", s.vel_input_scale),
+        ("x_unit_m", s.x_unit_m.unwrap_or(1.0)),
     ] {
         if !(v.is_finite() && v > 0.0) {
             return Err(bad(
@@ -109,7 +110,7 @@ pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
             ));
         }
     }
-    if s.collocation == 0 {
+    if s.collocation() == 0 {
         return Err(bad(
             "collocation",
             "zero collocation points".into(),
@@ -119,7 +120,7 @@ pub(crate) fn settings(s: &PinnSettings) -> Result<(), PinnError> {
     // a batch row costs about 100 floats of activations per hidden unit and tangent;
     // these caps keep one step within a few GB on any network size the widths allow
     for (name, v, cap) in [
-        ("collocation", s.collocation, MAX_BATCH),
+        ("collocation", s.collocation(), MAX_BATCH),
         ("pick_batch", s.pick_batch, MAX_BATCH),
         ("shard_points", s.shard_points, MAX_BATCH),
     ] {

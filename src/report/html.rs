@@ -80,6 +80,19 @@ pub fn html_report(r: &InvertReport) -> String {
         "seed / run time",
         format!("{} / {:.1} s", r.seed, r.run_seconds),
     );
+    let mut derived = String::from(
+        "<h2>Settings that follow the survey</h2><p>Values the settings left open were derived from the line and the picks; a value given in the settings or on the command line is kept (\"given\").</p><table>",
+    );
+    for c in &r.derived {
+        derived += &format!(
+            "<tr><th>{}</th><td>{} {}</td><td>{}</td></tr>\n",
+            escape(c.setting),
+            c.value,
+            escape(c.unit),
+            escape(&c.rule)
+        );
+    }
+    derived += "</table>";
     let list = |title: &str, items: &[String]| {
         if items.is_empty() {
             String::new()
@@ -102,7 +115,7 @@ pub fn html_report(r: &InvertReport) -> String {
 <h2>Velocity section</h2><img src=\"velocity.png\" alt=\"velocity section\">\
 <p>Depth to {:.0} m/s where the rays reach it: <code>interface-depth.csv</code>.</p>\
 <h2>Travel times</h2><img src=\"traveltimes.png\" alt=\"travel-time curves\">\
-<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">{}\
+<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">{}{}\
 <p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin, refine.bin.</p></body></html>\n",
         escape(r.caution),
         t,
@@ -113,6 +126,7 @@ pub fn html_report(r: &InvertReport) -> String {
             "<h2>Refinement</h2><img src=\"refinement.png\" alt=\"refinement chi-square\">"
         } else {
             ""
-        }
+        },
+        derived
     )
 }

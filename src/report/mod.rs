@@ -117,8 +117,12 @@ pub struct InvertReport {
     pub iso_depth: IsoDepth,
     /// Wall-clock seconds of this invocation.
     pub run_seconds: f64,
-    /// Settings used (also settings.toml).
+    /// Settings as given (also settings.toml: a repeat derives the open values
+    /// again, from the same picks to the same values).
     pub settings: RunSettings,
+    /// The values derived from the survey where the settings left them open, and
+    /// the given ones beside them, each with its rule.
+    pub derived: Vec<crate::inversion::Choice>,
     /// Warnings: from the picks, then the judge's reasons not to trust the section.
     pub warnings: Vec<String>,
     /// Notes from the inversion.
@@ -180,6 +184,7 @@ impl InvertReport {
             ),
             run_seconds,
             settings: settings.clone(),
+            derived: inv.choices.clone(),
             warnings: problem
                 .survey
                 .warnings
@@ -213,8 +218,22 @@ impl InvertReport {
             ),
         };
         let j = &self.judge;
+        let value = |name: &str| self.derived.iter().find(|c| c.setting == name);
+        let bounds = match (value("v_min"), value("v_max")) {
+            (Some(lo), Some(hi)) => format!(
+                "velocity bounds {:.0}..{:.0} m/s ({}); ",
+                lo.value,
+                hi.value,
+                if lo.derived || hi.derived {
+                    "from the picks' apparent velocities, see report.html"
+                } else {
+                    "given"
+                }
+            ),
+            _ => String::new(),
+        };
         format!(
-            "{} picks, {} shots; {training}{:.1} s\n{refined}\
+            "{} picks, {} shots; {bounds}{training}{:.1} s\n{refined}\
              fast-marching check on a {} m grid (half the inversion's): RMS {:.3} ms, chi2 {:.3}\n\
              on the inversion's own {} m grid: RMS {:.3} ms, chi2 {:.3}\n{own}\
              rays cover {:.0} % of the section; results in {}\n",

@@ -21,9 +21,13 @@ pub enum Activation {
 #[derive(Serialize, Deserialize, Clone, Debug, PartialEq)]
 #[serde(default, deny_unknown_fields)]
 pub struct PinnSettings {
-    /// Lowest velocity the model may take, m/s.
+    /// Lowest velocity the model may take, m/s (set by the run from its `v_min`, not
+    /// read from the `[pinn]` table: the bounds belong to the run, every method
+    /// shares them).
+    #[serde(skip)]
     pub v_min: f64,
-    /// Highest velocity the model may take, m/s.
+    /// Highest velocity the model may take, m/s (set by the run from its `v_max`).
+    #[serde(skip)]
     pub v_max: f64,
     /// 2: velocity `v(x, z)`; 1: velocity `v(depth)` only.
     pub dim: u8,
@@ -43,6 +47,12 @@ pub struct PinnSettings {
     /// Fourier-feature and sine networks: Tancik et al. 2020, Sitzmann et al. 2020,
     /// NeurIPS).
     pub vel_input_scale: f64,
+    /// Horizontal length of one unit of both networks' inputs, m (at most half the
+    /// model's width). Unset: the run derives it from the line (see the report); the
+    /// engine alone takes half the width, so that inputs span about `[-1, 1]`. On a
+    /// long line a shorter unit keeps a metre as resolvable as on a short one.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub x_unit_m: Option<f64>,
     /// Hidden activation of both networks.
     pub activation: Activation,
     /// Evaluate tanh as `1 − 2/(exp(2a)+1)` with a vectorised `exp` (faster; within
@@ -62,8 +72,10 @@ pub struct PinnSettings {
     pub beta2: f64,
     /// Adam ε.
     pub adam_eps: f64,
-    /// Collocation points per step.
-    pub collocation: usize,
+    /// Collocation points per step. Unset: the run derives it from the model's area
+    /// (see the report); the engine alone takes 2048.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub collocation: Option<usize>,
     /// Share of collocation points drawn around source–receiver paths (rest uniform).
     pub ray_fraction: f64,
     /// How far (× offset) below the straight path the path-guided points may reach.
@@ -102,6 +114,13 @@ pub struct PinnSettings {
     pub threads: usize,
 }
 
+impl PinnSettings {
+    /// Collocation points per step the engine uses (2048 when unset).
+    pub fn collocation(&self) -> usize {
+        self.collocation.unwrap_or(2048)
+    }
+}
+
 impl Default for PinnSettings {
     fn default() -> Self {
         PinnSettings {
@@ -114,6 +133,7 @@ impl Default for PinnSettings {
             vel_depth: 3,
             vel_follow_ground: true,
             vel_input_scale: 1.0,
+            x_unit_m: None,
             activation: Activation::Tanh,
             fast_tanh: true,
             steps: 3000,
@@ -123,7 +143,7 @@ impl Default for PinnSettings {
             beta1: 0.9,
             beta2: 0.999,
             adam_eps: 1e-8,
-            collocation: 2048,
+            collocation: None,
             ray_fraction: 0.5,
             ray_sag: 0.3,
             pick_batch: 1024,
@@ -164,7 +184,10 @@ pub struct RefineSettings {
     /// velocity network (0: the velocity network alone).
     pub detail_features: usize,
     /// Length scale of the detail frequencies (standard deviation `1/wavelength`), m.
-    pub detail_wavelength_m: f64,
+    /// Unset: the run derives it from the receiver spacing (see the report); the
+    /// engine alone takes 8 m.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub detail_wavelength_m: Option<f64>,
     /// Hidden width of the detail network.
     pub detail_width: usize,
     /// Hidden layers of the detail network.
@@ -180,7 +203,7 @@ impl Default for RefineSettings {
             reg_weight: 2.0,
             chi2_target: 1.0,
             detail_features: 32,
-            detail_wavelength_m: 8.0,
+            detail_wavelength_m: None,
             detail_width: 32,
             detail_depth: 2,
         }
@@ -188,6 +211,11 @@ impl Default for RefineSettings {
 }
 
 impl RefineSettings {
+    /// The detail wavelength the engine uses, m (8 m when unset).
+    pub fn detail_wavelength(&self) -> f64 {
+        self.detail_wavelength_m.unwrap_or(8.0)
+    }
+
     /// Checks the values; the message says what to do.
     pub fn validate(&self) -> Result<(), String> {
         if !(self.chi2_target.is_finite() && self.chi2_target > 0.0) {
@@ -206,10 +234,10 @@ impl RefineSettings {
             ));
         }
         if self.detail_features > 0 {
-            if !(self.detail_wavelength_m.is_finite() && self.detail_wavelength_m > 0.0) {
+            let w = self.detail_wavelength();
+            if !(w.is_finite() && w > 0.0) {
                 return Err(format!(
-                    "refine.detail_wavelength_m = {} must be a positive length in metres",
-                    self.detail_wavelength_m
+                    "refine.detail_wavelength_m = {w} must be a positive length in metres"
                 ));
             }
             if self.detail_width == 0 || self.detail_depth == 0 {

@@ -42,6 +42,14 @@ pub struct RunSettings {
     /// Depth of the model below the lowest station, m (default: the deepest turning
     /// ray of the starting model × 1.5 + 3 m, at least 10 m).
     pub depth_m: Option<f64>,
+    /// Lowest velocity the model may take, m/s (default: from the picks' slowest
+    /// near-offset apparent velocity, see the report's derived settings).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub v_min: Option<f64>,
+    /// Highest velocity the model may take, m/s (default: from the picks' fastest
+    /// apparent velocity, with room above it).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub v_max: Option<f64>,
     /// Velocity whose depth is mapped along the line (e.g. the top of rock), m/s.
     pub interface_mps: f64,
     /// The PINN's own settings.
@@ -57,6 +65,8 @@ impl Default for RunSettings {
             sigma_ms: 0.5,
             cell_m: None,
             depth_m: None,
+            v_min: None,
+            v_max: None,
             interface_mps: 1500.0,
             pinn: PinnSettings::default(),
             refine: RefineSettings::default(),
@@ -126,6 +136,21 @@ impl RunSettings {
         if let Some(d) = self.depth_m {
             if !(d.is_finite() && d > 0.0) {
                 return Err(format!("depth_m = {d} must be a positive number of metres"));
+            }
+        }
+        if let Some(v) = self.v_min {
+            if !(v.is_finite() && v > 0.0) {
+                return Err(format!(
+                    "v_min = {v} m/s is not a positive velocity: give the lowest plausible velocity, e.g. 100 m/s for dry soil, or leave it out to derive it from the picks"
+                ));
+            }
+        }
+        if let Some(v) = self.v_max {
+            if !(v.is_finite() && v > self.v_min.unwrap_or(0.0)) {
+                return Err(format!(
+                    "v_max = {v} m/s must be a velocity above v_min{}: swap or widen the bounds, or leave v_max out to derive it from the picks",
+                    self.v_min.map_or(String::new(), |m| format!(" = {m} m/s"))
+                ));
             }
         }
         if !(self.interface_mps.is_finite() && self.interface_mps > 0.0) {

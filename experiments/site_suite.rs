@@ -1,10 +1,14 @@
-//! Quality of the default PINN inversion on synthetic sites whose truth is known.
+//! The site suite: every inversion method on synthetic sites whose truth is known, and
+//! on the shipped demo. Defaults are chosen on this suite, never on one site.
 //!
 //! Each case builds a site of our own (a velocity function and a line geometry), makes
 //! picks by fast marching through the true model on a 0.125 m grid (sampled in
-//! slowness) with seeded Gaussian noise, runs the inversion layer with the settings of
-//! `slowfield invert` (`slowfield::inversion::run`; the run folder is then written to
-//! `target/pinn_quality/<case>/` for a look), and compares the result with the truth:
+//! slowness, a quarter of the default inversion cell) with seeded Gaussian noise, runs
+//! the inversion layer with the settings of `slowfield invert`
+//! (`slowfield::inversion::run`; the run folder, with `truth.png` and `inverted.png` on
+//! one colour scale, is written to `target/site_suite/<case>/` for a look), and
+//! compares the result with the truth. Every case runs in a child process of its own,
+//! so that its peak memory (the child's `VmHWM`) is its own:
 //!
 //! * judge χ²: fast marching through the final velocity on half the inversion's cell
 //!   (the misfit that counts); inversion-grid χ²: the same on the inversion's own grid;
@@ -18,9 +22,11 @@
 //! * the refinement's true χ² at every outer iteration, `*` where the step was
 //!   accepted (a step whose χ² rose is shortened).
 //!
-//! Run: `cargo run --release --example pinn_quality [case …]` (cases: flat, lens, topo,
-//! demo, sparse; all by default). `PINN_CONFIG=run.toml` overrides the settings (same
-//! format as `slowfield invert --config`).
+//! Run: `cargo run --release --example site_suite [case …]` (cases: flat, lens, topo,
+//! demo, sparse, short, hardrock, line120, line240, line480, line960; all but line960 by
+//! default, `all` for every one). `PINN_CONFIG=run.toml` overrides the settings (same
+//! format as `slowfield invert --config`). The table goes to the terminal and to
+//! `target/site_suite/table.md`.
 
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -188,6 +194,80 @@ fn cases() -> Vec<Case> {
         picks_file: None,
         sigma: |offset| 0.3e-3 + 0.01e-3 * offset,
     });
+    // short: 24 receivers 1 m apart, 5 shots, thin soil over a rock head dipping gently
+    let receivers: Vec<f64> = (0..24).map(|k| k as f64).collect();
+    out.push(Case {
+        name: "short",
+        ground: Box::new(|x| 30.0 - 0.03 * x),
+        velocity: Box::new(|x, d| {
+            let h = 2.2 + 0.04 * x;
+            if d < h {
+                350.0 + 60.0 * d
+            } else {
+                (1700.0 + 80.0 * (d - h)).min(2600.0)
+            }
+        }),
+        receivers,
+        shots: vec![-3.0, 5.5, 11.5, 17.5, 26.0],
+        lens: None,
+        truth_grid: None,
+        picks_file: None,
+        sigma: |_| 0.25e-3,
+    });
+    // hard rock: 5500 m/s under about 7 m of 800 m/s cover, 48 receivers 5 m apart
+    let (r, s) = line(48, 5.0, 4);
+    out.push(Case {
+        name: "hardrock",
+        ground: Box::new(|x| 200.0 + 0.015 * x),
+        velocity: Box::new(|x, d| {
+            let h = 7.0 + 1.5 * (2.0 * std::f64::consts::PI * x / 160.0).sin();
+            if d < h {
+                800.0
+            } else {
+                5500.0
+            }
+        }),
+        receivers: r,
+        shots: s,
+        lens: None,
+        truth_grid: None,
+        picks_file: None,
+        sigma: flat_sigma,
+    });
+    // lines of 120, 240, 480 and 960 m through the same ground (receivers 3 m apart,
+    // shots every 20 m): accuracy and cost against line length
+    for (name, length) in [
+        ("line120", 120.0),
+        ("line240", 240.0),
+        ("line480", 480.0),
+        ("line960", 960.0),
+    ] {
+        let n = (length / 3.0) as usize + 1;
+        let receivers: Vec<f64> = (0..n).map(|k| 3.0 * k as f64).collect();
+        let shots: Vec<f64> = (0..=(length / 20.0) as usize)
+            .map(|k| 20.0 * k as f64)
+            .collect();
+        out.push(Case {
+            name,
+            ground: Box::new(|x| 60.0 + 2.0 * (x / 55.0).sin() + 0.01 * x),
+            velocity: Box::new(|x, d| {
+                let h = 6.0
+                    + 2.0 * (2.0 * std::f64::consts::PI * x / 150.0).sin()
+                    + 4.0 * (-(((x % 200.0) - 130.0) / 8.0).powi(2)).exp();
+                if d < h {
+                    500.0 + 35.0 * d
+                } else {
+                    (2200.0 + 40.0 * (d - h)).min(3200.0)
+                }
+            }),
+            receivers,
+            shots,
+            lens: None,
+            truth_grid: None,
+            picks_file: None,
+            sigma: flat_sigma,
+        });
+    }
     out
 }
 
@@ -231,10 +311,15 @@ fn true_grid(c: &Case, survey: &Survey, cell: f64) -> VelocityGrid {
     })
 }
 
+/// One site's result (what a child process prints as one JSON line).
+#[derive(serde::Serialize, serde::Deserialize)]
 struct Row {
     case: String,
+    method: String,
+    picks: usize,
     steps: usize,
     seconds: f64,
+    peak_mb: f64,
     judge_chi2: f64,
     grid_chi2: f64,
     net_chi2: f64,
@@ -244,6 +329,7 @@ struct Row {
     lens: Option<(f64, f64)>,
     /// the refinement's true χ² per outer iteration, '*' on the accepted ones
     refine: String,
+    warnings: usize,
 }
 
 /// Keeps the last training checkpoint (for `PINN_RESUME`).
@@ -349,11 +435,42 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
             History::Training { .. } => None,
         })
         .unwrap_or_default();
+    // truth and inversion on one colour scale, the covered zone marked on both
+    let truth_here = truth.resample(model.spec, Some(&survey.surface));
+    let (lo, hi) = {
+        let (a, b) = model.range();
+        let (c, d) = truth_here.range();
+        (a.min(c), b.max(d))
+    };
+    for (stem, m, title) in [
+        ("truth", &truth_here, format!("{}: true velocity", c.name)),
+        (
+            "inverted",
+            model,
+            format!(
+                "{}: {} (judge χ² {:.2}, median error {:.1} % where covered)",
+                c.name, inv.label, inv.judge.misfit.chi2, err.median_pct
+            ),
+        ),
+    ] {
+        let decor = slowfield::figures::SectionDecor {
+            title,
+            surface: Some(&survey.surface),
+            covered: Some(covered),
+            v_range: Some((lo, hi)),
+            footnote: Some("pale: no ray coverage in the inverted model".into()),
+            ..Default::default()
+        };
+        slowfield::figures::velocity_section(&out.join(stem), m, &decor)?;
+    }
     let slowfield::inversion::MethodDetail::Pinn(p) = &inv.detail;
     Ok(Row {
         case: c.name.to_string(),
+        method: inv.method.name().to_string(),
+        picks: survey.picks.len(),
         steps: p.steps,
         seconds,
+        peak_mb: peak_mb(),
         judge_chi2: inv.judge.misfit.chi2,
         grid_chi2: inv.judge.inversion_grid.chi2,
         net_chi2: inv.own_fit.as_ref().map_or(f64::NAN, |o| o.misfit.chi2),
@@ -362,32 +479,89 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         refractor: err.interface_mean_abs_m,
         lens,
         refine,
+        warnings: inv.warnings.len(),
     })
 }
 
+/// Peak resident memory of this process so far, MB (Linux `VmHWM`; NaN elsewhere).
+fn peak_mb() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines()
+                .find(|l| l.starts_with("VmHWM:"))
+                .and_then(|l| l.split_whitespace().nth(1)?.parse::<f64>().ok())
+        })
+        .map_or(f64::NAN, |kb| kb / 1024.0)
+}
+
+/// Cases run when none are named (`all` adds the 960 m line, which takes minutes).
+const DEFAULT_CASES: [&str; 10] = [
+    "flat", "lens", "topo", "demo", "sparse", "short", "hardrock", "line120", "line240",
+    "line480",
+];
+
 fn main() -> anyhow::Result<()> {
-    let wanted: Vec<String> = std::env::args().skip(1).collect();
+    let args: Vec<String> = std::env::args().skip(1).collect();
     let settings = match std::env::var_os("PINN_CONFIG") {
         Some(p) => RunSettings::read(Path::new(&p)).map_err(|e| anyhow::anyhow!("{e}"))?,
         None => RunSettings::default(),
     };
-    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("target/pinn_quality");
-    println!("| case | steps | s | judge χ² (half cell) | inversion-grid χ² | network χ² | median / p90 v err % (covered) | depth err of {:.0} m/s, m | lens v/beside (true) | refinement χ² per iteration (* accepted) |", settings.interface_mps);
-    println!("|---|---|---|---|---|---|---|---|---|---|");
-    for c in cases() {
-        if !wanted.is_empty() && !wanted.iter().any(|w| w == c.name) {
-            continue;
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("target/site_suite");
+    // the child: one case, its row as a JSON line on stdout
+    if args.first().map(String::as_str) == Some("--child") {
+        let name = args.get(1).ok_or_else(|| anyhow::anyhow!("--child needs a case"))?;
+        let c = cases()
+            .into_iter()
+            .find(|c| c.name == name)
+            .ok_or_else(|| anyhow::anyhow!("no case {name}"))?;
+        let row = run_case(&c, &settings, &root.join(c.name))?;
+        println!("{}", serde_json::to_string(&row)?);
+        return Ok(());
+    }
+    let all = cases();
+    let wanted: Vec<&str> = if args.is_empty() {
+        DEFAULT_CASES.to_vec()
+    } else if args.iter().any(|a| a == "all") {
+        all.iter().map(|c| c.name).collect()
+    } else {
+        args.iter().map(String::as_str).collect()
+    };
+    for w in &wanted {
+        if !all.iter().any(|c| c.name == *w) {
+            anyhow::bail!(
+                "no case {w}; the cases: {}",
+                all.iter().map(|c| c.name).collect::<Vec<_>>().join(", ")
+            );
         }
+    }
+    std::fs::create_dir_all(&root)?;
+    let mut table = format!("| site | method | picks | steps | wall s | peak MB | judge χ² (half cell) | inversion-grid χ² | network χ² | median / p90 v err % (covered) | depth err of {:.0} m/s, m | lens v/beside (true) | warnings | refinement χ² per iteration (* accepted) |\n|---|---|---|---|---|---|---|---|---|---|---|---|---|---|\n", settings.interface_mps);
+    print!("{table}");
+    for c in all.iter().filter(|c| wanted.contains(&c.name)) {
         if c.picks_file.is_some() && c.truth_grid.is_none() {
             eprintln!("{}: demo-picks/true-model.csv missing, skipped", c.name);
             continue;
         }
-        let r = run_case(&c, &settings, &root.join(c.name))?;
-        println!(
-            "| {} | {} | {:.1} | {:.2} | {:.2} | {:.2} | {:.1} / {:.1} | {} | {} | {} |",
+        let child = std::process::Command::new(std::env::current_exe()?)
+            .args(["--child", c.name])
+            .stderr(std::process::Stdio::inherit())
+            .output()?;
+        if !child.status.success() {
+            eprintln!("{}: failed ({})", c.name, child.status);
+            continue;
+        }
+        let text = String::from_utf8_lossy(&child.stdout);
+        let line = text.lines().last().unwrap_or_default();
+        let r: Row = serde_json::from_str(line)?;
+        let row = format!(
+            "| {} | {} | {} | {} | {:.0} | {:.0} | {:.2} | {:.2} | {:.2} | {:.1} / {:.1} | {} | {} | {} | {} |\n",
             r.case,
+            r.method,
+            r.picks,
             r.steps,
             r.seconds,
+            r.peak_mb,
             r.judge_chi2,
             r.grid_chi2,
             r.net_chi2,
@@ -396,8 +570,12 @@ fn main() -> anyhow::Result<()> {
             r.refractor.map_or("–".into(), |d| format!("{d:.2}")),
             r.lens
                 .map_or("–".into(), |(a, b)| format!("{a:.2} ({b:.2})")),
+            r.warnings,
             r.refine,
         );
+        print!("{row}");
+        table.push_str(&row);
+        std::fs::write(root.join("table.md"), &table)?;
     }
     Ok(())
 }
