@@ -305,7 +305,7 @@ fn true_grid(c: &Case, survey: &Survey, cell: f64) -> VelocityGrid {
     }
     let (x0, x1) = survey.x_range();
     let top = survey.surface.highest();
-    let spec = GridSpec::covering(x0, x1, top - 45.0, top, cell);
+    let spec = GridSpec::covering(x0, x1, top - 60.0, top, cell);
     VelocityGrid::from_fn(spec, Some(&survey.surface), |x, z| {
         (c.velocity)(x, survey.surface.elevation(x) - z)
     })
@@ -497,8 +497,7 @@ fn peak_mb() -> f64 {
 
 /// Cases run when none are named (`all` adds the 960 m line, which takes minutes).
 const DEFAULT_CASES: [&str; 10] = [
-    "flat", "lens", "topo", "demo", "sparse", "short", "hardrock", "line120", "line240",
-    "line480",
+    "flat", "lens", "topo", "demo", "sparse", "short", "hardrock", "line120", "line240", "line480",
 ];
 
 fn main() -> anyhow::Result<()> {
@@ -507,10 +506,16 @@ fn main() -> anyhow::Result<()> {
         Some(p) => RunSettings::read(Path::new(&p)).map_err(|e| anyhow::anyhow!("{e}"))?,
         None => RunSettings::default(),
     };
-    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("target/site_suite");
+    // SUITE_OUT=DIR writes the run folders and the table there instead
+    let root = std::env::var_os("SUITE_OUT").map_or_else(
+        || Path::new(env!("CARGO_MANIFEST_DIR")).join("target/site_suite"),
+        PathBuf::from,
+    );
     // the child: one case, its row as a JSON line on stdout
     if args.first().map(String::as_str) == Some("--child") {
-        let name = args.get(1).ok_or_else(|| anyhow::anyhow!("--child needs a case"))?;
+        let name = args
+            .get(1)
+            .ok_or_else(|| anyhow::anyhow!("--child needs a case"))?;
         let c = cases()
             .into_iter()
             .find(|c| c.name == name)

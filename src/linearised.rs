@@ -109,6 +109,31 @@ impl Jacobian {
             .collect();
         Jacobian::from_rows(&rows, n_cols)
     }
+
+    /// The sensitivities to other unknowns of which the columns are linear
+    /// combinations: column `k` is `Σ w·u_c` over `(c, w)` in `combination[k]` (e.g.
+    /// bilinear interpolation of node slowness from a coarser lattice). The result is
+    /// `J·W`, entries of one row on the same unknown summed.
+    pub fn through(&self, combination: &[Vec<(usize, f64)>], n_cols: usize) -> Jacobian {
+        let rows: Vec<Vec<(usize, f64)>> = (0..self.n_rows())
+            .map(|i| {
+                let mut r: Vec<(usize, f64)> = self
+                    .row(i)
+                    .flat_map(|(k, a)| combination[k].iter().map(move |&(c, w)| (c, a * w)))
+                    .collect();
+                r.sort_by_key(|e| e.0);
+                let mut merged: Vec<(usize, f64)> = Vec::with_capacity(r.len());
+                for (c, w) in r {
+                    match merged.last_mut() {
+                        Some(last) if last.0 == c => last.1 += w,
+                        _ => merged.push((c, w)),
+                    }
+                }
+                merged
+            })
+            .collect();
+        Jacobian::from_rows(&rows, n_cols)
+    }
 }
 
 /// A forward solve of every pick through one model, with the sensitivities.
@@ -165,6 +190,14 @@ impl Linearisation {
             chi2_of(&pred, &self.sigma_s),
             self.jacobian.apply_transpose(&weighted),
         )
+    }
+
+    /// The same linearisation in other unknowns (see [`Jacobian::through`]).
+    pub fn through(self, combination: &[Vec<(usize, f64)>], n_cols: usize) -> Linearisation {
+        Linearisation {
+            jacobian: self.jacobian.through(combination, n_cols),
+            ..self
+        }
     }
 
     /// The same linearisation on other columns (see [`Jacobian::remap`]).
@@ -509,4 +542,58 @@ pub fn run(
         resumed_from,
         notes,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn through_is_the_product_with_the_combination_matrix() {
+        // J (2 × 4) and W (4 × 3) as dense matrices, J·W by hand
+        let j = [[1.0, 2.0, 0.0, 4.0], [0.0, 0.5, 3.0, 0.0]];
+        let w = [
+            [0.25, 0.75, 0.0],
+            [0.0, 1.0, 0.0],
+            [0.5, 0.0, 0.5],
+            [0.0, 0.0, 0.0],
+        ];
+        let rows: Vec<Vec<(usize, f64)>> = j
+            .iter()
+            .map(|r| {
+                r.iter()
+                    .enumerate()
+                    .filter(|(_, &v)| v != 0.0)
+                    .map(|(k, &v)| (k, v))
+                    .collect()
+            })
+            .collect();
+        let comb: Vec<Vec<(usize, f64)>> = w
+            .iter()
+            .map(|r| {
+                r.iter()
+                    .enumerate()
+                    .filter(|(_, &v)| v != 0.0)
+                    .map(|(k, &v)| (k, v))
+                    .collect()
+            })
+            .collect();
+        let jw = Jacobian::from_rows(&rows, 4).through(&comb, 3);
+        for (i, row) in j.iter().enumerate() {
+            let mut want = [0.0; 3];
+            for (k, a) in row.iter().enumerate() {
+                for (c, b) in w[k].iter().enumerate() {
+                    want[c] += a * b;
+                }
+            }
+            let mut got = [0.0; 3];
+            let mut seen = Vec::new();
+            for (c, v) in jw.row(i) {
+                assert!(!seen.contains(&c), "column {c} twice in row {i}");
+                seen.push(c);
+                got[c] += v;
+            }
+            assert_eq!(got, want, "row {i}");
+        }
+    }
 }

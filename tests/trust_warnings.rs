@@ -82,7 +82,9 @@ fn a_velocity_bound_below_the_rock_is_flagged() {
         inv.judge.misfit.chi2, inv.warnings
     );
     assert!(
-        inv.warnings.iter().any(|w| w.contains("upper bound v_max = 1600")),
+        inv.warnings
+            .iter()
+            .any(|w| w.contains("upper bound v_max = 1600")),
         "{:?}",
         inv.warnings
     );

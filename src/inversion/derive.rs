@@ -78,16 +78,32 @@ impl SurveyScales {
     }
 }
 
-/// `1/slope` of the least-squares line through `(offset, time)`, if it rises.
+/// `1/slope` of the least-squares line through `(offset, time)`, if it rises and the
+/// slope is known to [`SLOPE_PRECISION`]: its standard error, from the scatter about
+/// the line (`sqrt(Σr²/(n − 2) / Σ(x − x̄)²)`, the ordinary least-squares formula),
+/// must be below that share of the slope. A short branch whose slope the picking noise
+/// decides says nothing about the ground's velocity.
 fn apparent_velocity(pts: &[(f64, f64)]) -> Option<f64> {
     let n = pts.len() as f64;
     let mx = pts.iter().map(|p| p.0).sum::<f64>() / n;
     let mt = pts.iter().map(|p| p.1).sum::<f64>() / n;
     let sxx: f64 = pts.iter().map(|p| (p.0 - mx).powi(2)).sum();
     let sxt: f64 = pts.iter().map(|p| (p.0 - mx) * (p.1 - mt)).sum();
+    if sxx.is_nan() || sxx <= 0.0 || pts.len() < 3 {
+        return None;
+    }
     let slope = sxt / sxx;
-    (sxx > 0.0 && slope > 0.0).then(|| 1.0 / slope)
+    let icept = mt - slope * mx;
+    let rss: f64 = pts
+        .iter()
+        .map(|p| (p.1 - icept - slope * p.0).powi(2))
+        .sum();
+    let se = (rss / (n - 2.0) / sxx).sqrt();
+    (slope > 0.0 && se < SLOPE_PRECISION * slope).then(|| 1.0 / slope)
 }
+
+/// Relative standard error a branch's slope must beat to count.
+pub const SLOPE_PRECISION: f64 = 0.1;
 
 /// One setting of the run: its value, whether the run derived it, and how.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -184,10 +200,7 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
     s.pinn.v_max = v_max;
     // the networks' horizontal unit
     let half = 0.5 * problem.grid.width();
-    let x_unit = settings
-        .pinn
-        .x_unit_m
-        .unwrap_or_else(|| half.min(X_UNIT_M));
+    let x_unit = settings.pinn.x_unit_m.unwrap_or_else(|| half.min(X_UNIT_M));
     s.pinn.x_unit_m = Some(x_unit);
     out.push(Choice {
         setting: "pinn.x_unit_m",
@@ -318,7 +331,10 @@ mod tests {
         // 500 over 2500 m/s at 3 m: crossover 2h·sqrt((v2+v1)/(v2−v1)) = 7.3 m, so the
         // far half (beyond 47 m) is all head wave, of slope 1/v2
         let s = SurveyScales::of(&dipping_line(500.0, 2500.0, 3.0, 0.0, 2.0, 48));
-        assert!((s.fastest_apparent_mps - 2500.0).abs() < 1e-6 * 2500.0, "{s:?}");
+        assert!(
+            (s.fastest_apparent_mps - 2500.0).abs() < 1e-6 * 2500.0,
+            "{s:?}"
+        );
         // the nearest picks are direct waves
         assert!((s.slowest_apparent_mps - 500.0).abs() < 1e-9, "{s:?}");
         assert_eq!(s.receiver_spacing_m, 2.0);
@@ -334,7 +350,33 @@ mod tests {
         let up = v1 / (ic - dip.to_radians()).sin();
         let down = v1 / (ic + dip.to_radians()).sin();
         assert!(up > v2 && down < v2);
-        assert!((s.fastest_apparent_mps - up).abs() < 1e-6 * up, "{s:?} {up}");
+        assert!(
+            (s.fastest_apparent_mps - up).abs() < 1e-6 * up,
+            "{s:?} {up}"
+        );
+    }
+
+    #[test]
+    fn a_branch_whose_slope_the_noise_decides_does_not_count() {
+        // 2000 m/s with ±0.5 ms alternating picking error: over 15 m (4 picks, 7.5 ms of
+        // moveout) the slope is uncertain by far more than 10 %; over 95 m (20 picks) not
+        let line = |n: usize, dx: f64| -> Vec<(f64, f64)> {
+            (0..n)
+                .map(|k| {
+                    let x = 30.0 + dx * k as f64;
+                    let e = if k % 2 == 0 { 5e-4 } else { -5e-4 };
+                    (x, 0.004 + x / 2000.0 + e)
+                })
+                .collect()
+        };
+        assert_eq!(apparent_velocity(&line(4, 5.0)), None);
+        let v = apparent_velocity(&line(20, 5.0)).unwrap();
+        assert!((v - 2000.0).abs() < 0.05 * 2000.0, "{v}");
+        // a falling branch never counts
+        let falling: Vec<(f64, f64)> = (0..10)
+            .map(|k| (k as f64, 0.1 - 0.001 * k as f64))
+            .collect();
+        assert_eq!(apparent_velocity(&falling), None);
     }
 
     #[test]
@@ -357,13 +399,12 @@ mod tests {
         assert_eq!(s.v_max, Some(v_max.value));
         // 2 m spacing: 4 × 2 = 8 m; half the 94 m model is under 70 m
         assert_eq!(get("refine.detail_wavelength_m").value, 8.0);
-        assert_eq!(
-            get("pinn.x_unit_m").value,
-            0.5 * problem.grid.width()
-        );
+        assert_eq!(get("pinn.x_unit_m").value, 0.5 * problem.grid.width());
         // given values are kept and marked so
-        let mut given = RunSettings::default();
-        given.v_max = Some(3100.0);
+        let mut given = RunSettings {
+            v_max: Some(3100.0),
+            ..Default::default()
+        };
         given.refine.detail_wavelength_m = Some(5.0);
         given.pinn.collocation = Some(1024);
         let (s2, c2) = resolve(&problem, &given);

@@ -107,12 +107,17 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
                 s = RunSettings::read(&st).map_err(|e| anyhow::anyhow!("{e}"))?;
             }
         }
+        // the checkpoint holds the values the run derived from the survey as well;
+        // the settings keep them open as the file does (the run derives the same)
+        let open = s.pinn.clone();
         s.pinn = serde_json::from_str(cp.settings_json()).with_context(|| {
             format!(
                 "{}: the checkpoint's settings are unreadable",
                 cp_path.display()
             )
         })?;
+        s.pinn.x_unit_m = open.x_unit_m;
+        s.pinn.collocation = open.collocation;
         resume.checkpoint = Some(cp);
     }
     let o = &req.overrides;

@@ -93,36 +93,74 @@ pub fn refine(
     observer: &mut dyn OuterObserver,
 ) -> Result<RefineOutcome, PinnError> {
     super::validate::refine(settings)?;
-    // ground nodes of the grid: where the velocity is sampled; the regulariser is
-    // taken on every other node in each direction (the networks' shortest wavelengths
-    // are several cells long, and its slopes cost three times a value each)
-    let mut nodes = Vec::new();
+    // The networks are evaluated on a lattice coarser than the grid (every
+    // `stride`-th node, spacing at most an eighth of the detail wavelength and 1 m):
+    // node slowness is bilinear in the lattice's, so the inner problem works in the
+    // lattice's unknowns through `J·W`, at a fraction of the cost on long lines. The
+    // regulariser is taken on every other lattice node below the ground. The velocity
+    // the forward solver sees is the networks' at every ground node.
+    let stride = lattice_stride(grid, settings);
+    let lat_nx = (grid.nx - 1).div_ceil(stride) + 1;
+    let lat_nz = (grid.nz - 1).div_ceil(stride) + 1;
+    let mut lat_slot = vec![usize::MAX; lat_nx * lat_nz];
     let mut points = Vec::new();
-    let mut lattice = Vec::new();
-    let mut slot = vec![usize::MAX; grid.len()];
+    let mut lattice_ab = Vec::new();
+    let mut combination: Vec<Vec<(usize, f64)>> = vec![Vec::new(); grid.len()];
+    let mut nodes = Vec::new();
+    let mut node_points = Vec::new();
+    let r = stride as f64;
     for j in 0..grid.nz {
         for i in 0..grid.nx {
             let p = [grid.x(i), grid.z(j)];
-            if p[1] <= model.domain.elevation(p[0]) + 1e-9 {
-                slot[grid.idx(i, j)] = nodes.len();
-                nodes.push(grid.idx(i, j));
-                points.push(p);
-                if i % 2 == 0 && j % 2 == 0 {
-                    lattice.push(p);
+            if p[1] > model.domain.elevation(p[0]) + 1e-9 {
+                continue;
+            }
+            let k = grid.idx(i, j);
+            nodes.push(k);
+            node_points.push(p);
+            let (a, b) = (i / stride, j / stride);
+            let (fa, fb) = ((i % stride) as f64 / r, (j % stride) as f64 / r);
+            for (da, wa) in [(0, 1.0 - fa), (1, fa)] {
+                for (db, wb) in [(0, 1.0 - fb), (1, fb)] {
+                    let w = wa * wb;
+                    if w <= 0.0 {
+                        continue;
+                    }
+                    let (aa, bb) = (a + da, b + db);
+                    let li = bb * lat_nx + aa;
+                    if lat_slot[li] == usize::MAX {
+                        lat_slot[li] = points.len();
+                        points.push([
+                            grid.x0 + (aa * stride) as f64 * grid.dx,
+                            grid.z0 + (bb * stride) as f64 * grid.dz,
+                        ]);
+                        lattice_ab.push((aa, bb));
+                    }
+                    combination[k].push((lat_slot[li], w));
                 }
             }
         }
     }
+    let lattice: Vec<[f64; 2]> = points
+        .iter()
+        .zip(&lattice_ab)
+        .filter(|(p, (a, b))| {
+            a % 2 == 0 && b % 2 == 0 && p[1] <= model.domain.elevation(p[0]) + 1e-9
+        })
+        .map(|(p, _)| *p)
+        .collect();
     let detail = (settings.detail_features > 0).then(|| {
         let d = Detail::new(&model.domain, settings, &model.settings);
         let b = d.batch(&model.domain, &points);
         let br = d.batch(&model.domain, &lattice);
-        (d, b, br)
+        let bn = d.batch(&model.domain, &node_points);
+        (d, b, br, bn)
     });
     let ev = VelEval {
         model,
         vb: model.vel_batch(points.iter().copied()),
         vb_reg: model.vel_batch(lattice.iter().copied()),
+        vb_nodes: model.vel_batch(node_points.iter().copied()),
         detail: detail.as_ref(),
         regulariser: settings.regulariser,
         inv_n: 1.0 / lattice.len().max(1) as f64,
@@ -130,13 +168,14 @@ pub fn refine(
     };
     let n_vel = model.vel.len();
     let mut p: Vec<f64> = model.vel.iter().map(|&x| x as f64).collect();
-    if let Some((d, _, _)) = &detail {
+    if let Some((d, _, _, _)) = &detail {
         p.extend(d.params.iter().map(|&x| x as f64));
     }
     let mut problem = Stage {
         ev: &ev,
         nodes: &nodes,
-        slot: &slot,
+        combination: &combination,
+        n_lattice: points.len(),
         n_grid: grid.len(),
         settings,
     };
@@ -158,11 +197,21 @@ pub fn refine(
     let mut out = model.clone();
     let kept: Vec<f32> = outer.params.iter().map(|&x| x as f32).collect();
     out.vel = kept[..n_vel].to_vec();
-    out.detail = detail.map(|(mut d, _, _)| {
+    out.detail = detail.map(|(mut d, _, _, _)| {
         d.params = kept[n_vel..].to_vec();
         d
     });
     Ok(RefineOutcome { model: out, outer })
+}
+
+/// Lattice stride of the refinement: the networks are evaluated every `stride` grid
+/// nodes, a spacing of at most an eighth of the detail wavelength and of 1 m.
+pub fn lattice_stride(grid: &GridSpec, settings: &RefineSettings) -> usize {
+    let mut spacing = 1.0f64;
+    if settings.detail_features > 0 {
+        spacing = spacing.min(settings.detail_wavelength() / 8.0);
+    }
+    ((spacing / grid.dx.max(grid.dz)).floor() as usize).max(1)
 }
 
 /// The refinement as the outer loop sees it.
@@ -170,15 +219,16 @@ struct Stage<'a> {
     ev: &'a VelEval<'a>,
     /// grid index of every ground node
     nodes: &'a [usize],
-    /// ground-node slot of every grid node (`usize::MAX`: air)
-    slot: &'a [usize],
+    /// lattice nodes and bilinear weights of every grid node (empty: air)
+    combination: &'a [Vec<(usize, f64)>],
+    n_lattice: usize,
     n_grid: usize,
     settings: &'a RefineSettings,
 }
 
 impl InnerProblem for Stage<'_> {
     fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String> {
-        let (_, _, _, values, reg_value) = self.ev.forward(p).map_err(|e| e.to_string())?;
+        let (values, reg_value) = self.ev.at_nodes(p).map_err(|e| e.to_string())?;
         let mut on_grid = vec![f64::NAN; self.n_grid];
         for (&k, &val) in self.nodes.iter().zip(&values) {
             on_grid[k] = val;
@@ -186,11 +236,17 @@ impl InnerProblem for Stage<'_> {
         Ok((on_grid, reg_value))
     }
 
-    fn solve(&mut self, p: &[f64], v: &[f64], lin: Linearisation) -> Result<InnerSolution, String> {
+    fn solve(
+        &mut self,
+        p: &[f64],
+        _v: &[f64],
+        lin: Linearisation,
+    ) -> Result<InnerSolution, String> {
+        let (_, _, _, lattice_v, _) = self.ev.forward(p).map_err(|e| e.to_string())?;
         let inner = Inner {
             ev: self.ev,
-            lin: lin.remap(self.slot, self.nodes.len()),
-            s_k: self.nodes.iter().map(|&k| 1.0 / v[k]).collect(),
+            lin: lin.through(self.combination, self.n_lattice),
+            s_k: lattice_v.iter().map(|&v| 1.0 / v).collect(),
             w_r: self.settings.reg_weight,
             best: RefCell::new((f64::INFINITY, p.to_vec(), f64::NAN)),
             last: RefCell::new(None),
@@ -227,14 +283,17 @@ impl InnerProblem for Stage<'_> {
     }
 }
 
-/// The velocity network evaluated at the ground nodes of the grid (values) and on a
-/// lattice of every other node (values and slopes, for the regulariser).
+/// The velocity network evaluated on the refinement's lattice (values), on every
+/// other lattice node (values and slopes, for the regulariser) and at the grid's
+/// ground nodes (values, for the forward solver).
 struct VelEval<'a> {
     model: &'a TrainedModel,
     vb: VelBatch,
     vb_reg: VelBatch,
-    /// the detail network with its features at the nodes and on the lattice
-    detail: Option<&'a (Detail, DetailBatch, DetailBatch)>,
+    vb_nodes: VelBatch,
+    /// the detail network with its features on the lattice, on the regulariser's
+    /// nodes and at the ground nodes
+    detail: Option<&'a (Detail, DetailBatch, DetailBatch, DetailBatch)>,
     regulariser: Regulariser,
     inv_n: f64,
     ad: Device,
@@ -270,7 +329,7 @@ impl VelEval<'_> {
             true,
         );
         let (det, extra, extra_reg) = match self.detail {
-            Some((d, b, br)) => {
+            Some((d, b, br, _)) => {
                 let net = d.net(&params[n_vel..], &self.ad, true);
                 let t = |v: &Vec<f32>, b: &DetailBatch| {
                     Tensor::<2>::from_data(TensorData::new(v.clone(), [b.n, b.d_in]), &self.ad)
@@ -295,6 +354,38 @@ impl VelEval<'_> {
             .copied()
             .unwrap_or(f64::NAN);
         Ok((Nets(vel, det), v, reg, values, reg_value))
+    }
+}
+
+impl VelEval<'_> {
+    /// Velocity at the grid's ground nodes and the regulariser's value (untracked).
+    fn at_nodes(&self, p: &[f64]) -> Result<(Vec<f64>, f64), PinnError> {
+        let m = self.model;
+        let st = &m.settings;
+        let params: Vec<f32> = p.iter().map(|&x| x as f32).collect();
+        let n_vel = m.vel.len();
+        let dev = Device::flex();
+        let vel = NetTensors::new(
+            &m.vel_shape,
+            &params[..n_vel],
+            st.activation,
+            st.fast_tanh,
+            &dev,
+            false,
+        );
+        let extra = match self.detail {
+            Some((d, _, _, bn)) => {
+                let net = d.net(&params[n_vel..], &dev, false);
+                let x =
+                    Tensor::<2>::from_data(TensorData::new(bn.x.clone(), [bn.n, bn.d_in]), &dev);
+                Some(net.forward(x))
+            }
+            None => None,
+        };
+        let v = velocity_value(&vel, &self.vb_nodes, &m.frame, &dev, extra);
+        let values = to_f64(v)?;
+        let (_, _, _, _, reg_value) = self.forward(p)?;
+        Ok((values, reg_value))
     }
 }
 
