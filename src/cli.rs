@@ -138,10 +138,12 @@ pub struct InvertArgs {
     /// Uncertainty of picks without their own sigma, ms.
     #[arg(long, value_name = "MS")]
     pub sigma_ms: Option<f64>,
-    /// Lowest velocity the model may take, m/s.
+    /// Lowest velocity the model may take, m/s (default: 0.3 × the slowest apparent
+    /// velocity near the shots; the report lists the value used).
     #[arg(long, value_name = "MPS")]
     pub v_min: Option<f64>,
-    /// Highest velocity the model may take, m/s.
+    /// Highest velocity the model may take, m/s (default: 1.6 × the fastest apparent
+    /// velocity of the far-offset branches; the report lists the value used).
     #[arg(long, value_name = "MPS")]
     pub v_max: Option<f64>,
     /// Model regulariser of both stages (their weights: `[pinn] reg_weight` and

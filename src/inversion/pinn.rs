@@ -173,13 +173,14 @@ pub(super) fn run(
                 resumed_from: r.outer.resumed_from,
             },
         });
-        r.model
+        r.velocity
     } else {
-        outcome.model.clone()
+        outcome
+            .model
+            .velocity_on_grid(&problem.grid)
+            .map_err(|e| InversionError::Method(e.to_string()))?
     };
-    let v = final_model
-        .velocity_on_grid(&problem.grid)
-        .map_err(|e| InversionError::Method(e.to_string()))?;
+    let v = final_model;
     let model = VelocityGrid {
         spec: problem.grid,
         v,

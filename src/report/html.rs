@@ -59,15 +59,24 @@ pub fn html_report(r: &InvertReport) -> String {
         );
     }
     let st = &r.problem.start;
-    t += &row(
-        "starting model",
+    let start = if st.model.jump_m.is_finite() {
         format!(
-            "v = {:.0} m/s + {:.1}/s × depth (RMS {:.2} ms)",
+            "{:.0} m/s to {:.2} m, then {:.0} m/s (RMS {:.2} ms)",
+            st.model.v0,
+            st.model.jump_m,
+            st.model.v_cap,
+            st.rms_s * 1e3
+        )
+    } else {
+        format!(
+            "v = {:.0} m/s + {:.1}/s × depth, at most {:.0} m/s (RMS {:.2} ms)",
             st.model.v0,
             st.model.g,
+            st.model.v_cap,
             st.rms_s * 1e3
-        ),
-    );
+        )
+    };
+    t += &row("starting model", start);
     t += &row(
         "model depth / grid cell",
         format!("{:.1} m / {} m", r.problem.depth_m, r.problem.cell_m),
