@@ -558,26 +558,19 @@ mod tests {
             [0.5, 0.0, 0.5],
             [0.0, 0.0, 0.0],
         ];
-        let rows: Vec<Vec<(usize, f64)>> = j
-            .iter()
-            .map(|r| {
-                r.iter()
-                    .enumerate()
-                    .filter(|(_, &v)| v != 0.0)
-                    .map(|(k, &v)| (k, v))
-                    .collect()
-            })
-            .collect();
-        let comb: Vec<Vec<(usize, f64)>> = w
-            .iter()
-            .map(|r| {
-                r.iter()
-                    .enumerate()
-                    .filter(|(_, &v)| v != 0.0)
-                    .map(|(k, &v)| (k, v))
-                    .collect()
-            })
-            .collect();
+        // the non-zero entries of each dense row
+        fn sparse<const N: usize>(m: &[[f64; N]]) -> Vec<Vec<(usize, f64)>> {
+            m.iter()
+                .map(|r| {
+                    r.iter()
+                        .enumerate()
+                        .filter(|(_, &v)| v != 0.0)
+                        .map(|(k, &v)| (k, v))
+                        .collect()
+                })
+                .collect()
+        }
+        let (rows, comb) = (sparse(&j), sparse(&w));
         let jw = Jacobian::from_rows(&rows, 4).through(&comb, 3);
         for (i, row) in j.iter().enumerate() {
             let mut want = [0.0; 3];
