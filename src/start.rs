@@ -221,7 +221,8 @@ pub const LAYER_PREFERENCE: f64 = 0.8;
 
 /// Least-squares search of a 3-parameter family: a 31³ grid over `lo..hi` (the second
 /// axis quadratically spaced, so small values are finely sampled), then a local
-/// search that halves its steps until they are below 1e-7 of the second axis' range.
+/// search that halves its steps until the second axis' step is below 1e-7 × (its
+/// range / 400), the stop of the original gradient search.
 fn search(
     cost: &dyn Fn(&LinearStart) -> f64,
     mk: impl Fn([f64; 3]) -> LinearStart,

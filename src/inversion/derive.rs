@@ -151,13 +151,22 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
     let given = || "given".to_string();
     // velocity bounds
     let v_max = settings.v_max.unwrap_or_else(|| {
-        let cap = problem.start.model.v_cap;
+        // the starting model's velocity where its deepest ray turns (its cap may lie
+        // below every ray, where the picks say nothing of it)
+        let deepest = problem
+            .start
+            .model
+            .velocity(problem.start.deepest_turning_m);
         let mut v = V_MAX_HEADROOM * sc.fastest_apparent_mps;
-        if cap.is_finite() {
-            v = v.max(1.25 * cap);
+        if deepest.is_finite() {
+            v = v.max(1.25 * deepest);
         }
         if !v.is_finite() {
             v = 5000.0;
+        }
+        // room above a given v_min
+        if let Some(lo) = settings.v_min {
+            v = v.max(2.0 * lo);
         }
         (v / 100.0).ceil() * 100.0
     });
@@ -170,7 +179,7 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
             given()
         } else {
             format!(
-                "{V_MAX_HEADROOM} × the fastest apparent velocity of a far-offset branch ({:.0} m/s), at least 1.25 × the starting model's deepest velocity, rounded up to 100 m/s",
+                "{V_MAX_HEADROOM} × the fastest apparent velocity of a far-offset branch ({:.0} m/s), at least 1.25 × the starting model's velocity where its deepest ray turns and 2 × a given v_min, rounded up to 100 m/s",
                 sc.fastest_apparent_mps
             )
         },
@@ -389,8 +398,12 @@ mod tests {
         // 1.6 × 2500 = 4000, unless the start model's cap asks for more
         let v_max = get("v_max");
         assert!(v_max.derived);
-        let cap = 1.25 * problem.start.model.v_cap;
-        let want = (V_MAX_HEADROOM * 2500.0).max(if cap.is_finite() { cap } else { 0.0 });
+        let deepest = 1.25
+            * problem
+                .start
+                .model
+                .velocity(problem.start.deepest_turning_m);
+        let want = (V_MAX_HEADROOM * 2500.0).max(deepest);
         assert_eq!(v_max.value, (want / 100.0).ceil() * 100.0);
         assert!(v_max.value >= 4000.0);
         // 0.3 × 500 = 150
@@ -415,6 +428,23 @@ mod tests {
             let c = c2.iter().find(|c| c.setting == name).unwrap();
             assert!(!c.derived && c.rule == "given", "{c:?}");
         }
+    }
+
+    #[test]
+    fn a_given_v_min_above_the_derived_v_max_gives_a_v_max_over_it() {
+        // the picks say 2500 m/s at most (v_max 4000 derived); a hand-given v_min of
+        // 3000 m/s must not leave the bounds crossed
+        let problem = Problem::new(
+            dipping_line(500.0, 2500.0, 3.0, 0.0, 2.0, 48),
+            &RunSettings::default(),
+        );
+        let given = RunSettings {
+            v_min: Some(3000.0),
+            ..Default::default()
+        };
+        let (s, _) = resolve(&problem, &given);
+        assert_eq!(s.pinn.v_min, 3000.0);
+        assert!(s.pinn.v_max >= 6000.0, "{}", s.pinn.v_max);
     }
 
     #[test]

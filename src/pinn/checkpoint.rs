@@ -23,7 +23,9 @@ pub(crate) struct State {
 }
 
 const MAGIC: &[u8; 8] = b"SFPINNCK";
-const VERSION: u32 = 1;
+/// 2: the velocity bounds left the settings text (set by the run) and joined the
+/// fingerprint on their own.
+const VERSION: u32 = 2;
 
 /// Weights, Adam moments, step, step-size scale, early-stop state, the best weights so
 /// far, the step history, and a fingerprint of the picks, domain, start model and
@@ -221,5 +223,9 @@ pub(crate) fn fingerprint(
     s.checkpoint_every = 0;
     s.threads = 0;
     eat(serde_json::to_string(&s).unwrap_or_default().as_bytes());
+    // the bounds are set by the run, not serialised with the settings: a network
+    // whose output is scaled to other bounds must not be continued
+    eat(&s.v_min.to_bits().to_le_bytes());
+    eat(&s.v_max.to_bits().to_le_bytes());
     fnv.0
 }
