@@ -44,7 +44,7 @@ const CASES: u32 = 300;
 /// Runs `test` on inputs drawn from `strategy`: `CASES` of them, or `PROPTEST_CASES`;
 /// repeated with fresh seeds for `READER_FUZZ_SECONDS` when that is set. A failure
 /// panics with the smallest failing input proptest found.
-fn check<S>(name: &str, strategy: S, test: impl Fn(S::Value) -> Result<(), TestCaseError>)
+fn assert_property<S>(name: &str, strategy: S, test: impl Fn(S::Value) -> Result<(), TestCaseError>)
 where
     S: Strategy,
     S::Value: Debug,
@@ -863,7 +863,7 @@ fn arbitrary_text_never_panics_and_every_refusal_is_located() {
         proptest::collection::vec(any::<u8>(), 0..600).prop_map(|b| bytes_text(&b)),
         any::<String>(),
     ];
-    check("arbitrary text", text, |t| {
+    assert_property("arbitrary text", text, |t| {
         model_holds(&t)?;
         picks_hold(&t)?;
         surface_holds(&t)?;
@@ -883,7 +883,7 @@ fn csv_noise_under_a_valid_header() {
         ][..],
     );
     let body = string_regex("[0-9,.eE+\\-\n\r\" #\tA-Ca-c\u{feff}é]{0,400}").unwrap();
-    check("csv noise", (headers, body), |(h, b)| {
+    assert_property("csv noise", (headers, body), |(h, b)| {
         let t = format!("{h}\n{b}");
         model_holds(&t)?;
         picks_hold(&t)?;
@@ -895,7 +895,7 @@ fn csv_noise_under_a_valid_header() {
 fn arbitrary_bytes_through_files() {
     let scratch = Scratch::new();
     let bytes = proptest::collection::vec(any::<u8>(), 0..400);
-    check("arbitrary bytes, files", bytes, |b| {
+    assert_property("arbitrary bytes, files", bytes, |b| {
         let t = bytes_text(&b);
         let p = scratch.write("model.csv", &b);
         match VelocityGrid::read(&p) {
@@ -930,39 +930,39 @@ fn edits() -> impl Strategy<Value = Vec<Edit>> {
 #[test]
 fn edited_model_files() {
     let seen = Outcomes::default();
-    check("edited model", edits(), |e| {
+    assert_property("edited model", edits(), |e| {
         seen.note(model_holds(&apply(&good_model_text(), &e, ',')))
     });
-    seen.both("edited model");
+    seen.assert_both_verdicts("edited model");
 }
 
 #[test]
 fn edited_picks_files() {
     let seen = Outcomes::default();
-    check("edited picks", edits(), |e| {
+    assert_property("edited picks", edits(), |e| {
         seen.note(picks_hold(&apply(&good_picks_text(), &e, ',')))
     });
-    seen.both("edited picks");
+    seen.assert_both_verdicts("edited picks");
 }
 
 #[test]
 fn edited_surface_files() {
     let seen = Outcomes::default();
-    check("edited surface", edits(), |e| {
+    assert_property("edited surface", edits(), |e| {
         seen.note(surface_holds(&apply(&good_surface_text(), &e, ',')))
     });
-    seen.both("edited surface");
+    seen.assert_both_verdicts("edited surface");
 }
 
 #[test]
 fn edited_settings_files() {
     let texts = settings_texts();
     let seen = Outcomes::default();
-    check("edited settings", (0..texts.len(), edits()), |(k, e)| {
+    assert_property("edited settings", (0..texts.len(), edits()), |(k, e)| {
         // fields of a TOML line: key and value
         seen.note(settings_hold(&apply(&texts[k], &e, '=')))
     });
-    seen.both("edited settings");
+    seen.assert_both_verdicts("edited settings");
 }
 
 #[test]
@@ -975,7 +975,7 @@ fn edited_files_with_bad_bytes_through_files() {
         ("surface.csv", good_surface_text()),
         ("settings.toml", settings_texts().remove(0)),
     ];
-    check(
+    assert_property(
         "edited files with bad bytes",
         (0..4usize, edits(), byte_edits()),
         |(k, e, b)| {
@@ -1003,7 +1003,7 @@ fn edited_files_with_bad_bytes_through_files() {
             })
         },
     );
-    seen.both("edited files with bad bytes");
+    seen.assert_both_verdicts("edited files with bad bytes");
 }
 
 /// How many edited inputs a reader accepted and refused: a property over edits that
@@ -1026,7 +1026,7 @@ impl Outcomes {
         Ok(())
     }
 
-    fn both(&self, name: &str) {
+    fn assert_both_verdicts(&self, name: &str) {
         let (a, r) = (
             self.accepted.load(Ordering::Relaxed),
             self.refused.load(Ordering::Relaxed),
@@ -1047,7 +1047,7 @@ fn valid_models_come_back_whole_in_any_form() {
         prop_oneof![Just(plain_form()), form()],
         any::<u64>(),
     );
-    check("valid models", s, |(m, order, form, seed)| {
+    assert_property("valid models", s, |(m, order, form, seed)| {
         let mut nodes = m.nodes();
         shuffle(&mut nodes, seed);
         let text = model_text(&m, &nodes, &order, &form);
@@ -1094,7 +1094,7 @@ fn model_layout_verdicts_match_a_dense_table() {
         any::<u64>(),
         any::<bool>(),
     );
-    check("model layouts", s, |(m, copies, seed, plain)| {
+    assert_property("model layouts", s, |(m, copies, seed, plain)| {
         let mut nodes = Vec::new();
         for j in 0..m.nz {
             for i in 0..m.nx {
@@ -1227,7 +1227,7 @@ fn valid_picks_come_back_whole_in_any_form() {
         any::<bool>(),
         form(),
     );
-    check("valid picks", s, |(rows, order, seconds, sigma, form)| {
+    assert_property("valid picks", s, |(rows, order, seconds, sigma, form)| {
         let (text, lines) = picks_text(&rows, &order, seconds, sigma, &form);
         let sv = parse_picks_text(picks_path(), &text)
             .map_err(|e| TestCaseError::fail(format!("refused valid picks: {e}\n{text:?}")))?;
@@ -1271,7 +1271,7 @@ fn valid_picks_come_back_whole_in_any_form() {
 fn a_bad_value_is_refused_at_its_line() {
     let bad = select(&["abc", "1e400", "NaN", "-inf", "1,2", "\"\"", "١٢", "5e"][..]);
     let s = (pick_rows(), form(), any::<Index>(), 1usize..5, bad);
-    check("bad value at its line", s, |(rows, form, row, col, bad)| {
+    assert_property("bad value at its line", s, |(rows, form, row, col, bad)| {
         // picks: a position or the time of row k
         let order: Vec<usize> = (0..6).collect();
         let (_, lines) = picks_text(&rows, &order, false, false, &form);
@@ -1324,7 +1324,7 @@ fn valid_surfaces_come_back_whole() {
         any::<u64>(),
         form(),
     );
-    check("valid surfaces", s, |(pts, zx, seed, form)| {
+    assert_property("valid surfaces", s, |(pts, zx, seed, form)| {
         let mut rows: Vec<(f64, f64)> = pts
             .iter()
             .map(|(&x, &z)| (x as f64 * 0.5, z as f64 * 0.01))

@@ -120,6 +120,24 @@ pub struct Choice {
     pub rule: String,
 }
 
+/// The entry of one setting: derived by `rule` where `derived`, else "given" (the rule's
+/// text is only built when it is shown).
+fn choice(
+    setting: &'static str,
+    value: f64,
+    unit: &'static str,
+    derived: bool,
+    rule: impl FnOnce() -> String,
+) -> Choice {
+    Choice {
+        setting,
+        value,
+        unit,
+        derived,
+        rule: if derived { rule() } else { "given".into() },
+    }
+}
+
 /// Headroom of `v_max` over the fastest apparent velocity (a refractor dipping down
 /// the line shows its true velocity only between the up- and down-dip values, and
 /// the deepest rays see faster ground than the far branches' slopes).
@@ -148,7 +166,6 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
     let sc = &problem.scales;
     let mut s = settings.clone();
     let mut out = Vec::new();
-    let given = || "given".to_string();
     // velocity bounds
     let v_max = settings.v_max.unwrap_or_else(|| {
         // the starting model's velocity where its deepest ray turns (its cap may lie
@@ -170,39 +187,35 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
         }
         (v / 100.0).ceil() * 100.0
     });
-    out.push(Choice {
-        setting: "v_max",
-        value: v_max,
-        unit: "m/s",
-        derived: settings.v_max.is_none(),
-        rule: if settings.v_max.is_some() {
-            given()
-        } else {
-            format!(
-                "{V_MAX_HEADROOM} × the fastest apparent velocity of a far-offset branch ({:.0} m/s), at least 1.25 × the starting model's velocity where its deepest ray turns and 2 × a given v_min, rounded up to 100 m/s",
-                sc.fastest_apparent_mps
-            )
+    out.push(choice(
+        "v_max",
+        v_max,
+        "m/s",
+        settings.v_max.is_none(),
+        || {
+        format!(
+            "{V_MAX_HEADROOM} × the fastest apparent velocity of a far-offset branch ({:.0} m/s), at least 1.25 × the starting model's velocity where its deepest ray turns and 2 × a given v_min, rounded up to 100 m/s",
+            sc.fastest_apparent_mps
+        )
         },
-    });
+    ));
     let v_min = settings.v_min.unwrap_or_else(|| {
         let v = V_MIN_SHARE * sc.slowest_apparent_mps;
         let v = if v.is_finite() { v } else { 100.0 };
         ((v / 10.0).floor() * 10.0).max(30.0).min(0.5 * v_max)
     });
-    out.push(Choice {
-        setting: "v_min",
-        value: v_min,
-        unit: "m/s",
-        derived: settings.v_min.is_none(),
-        rule: if settings.v_min.is_some() {
-            given()
-        } else {
-            format!(
-                "{V_MIN_SHARE} × the slowest apparent velocity near the shots ({:.0} m/s, 10th percentile), rounded down to 10 m/s",
-                sc.slowest_apparent_mps
-            )
+    out.push(choice(
+        "v_min",
+        v_min,
+        "m/s",
+        settings.v_min.is_none(),
+        || {
+        format!(
+            "{V_MIN_SHARE} × the slowest apparent velocity near the shots ({:.0} m/s, 10th percentile), rounded down to 10 m/s",
+            sc.slowest_apparent_mps
+        )
         },
-    });
+    ));
     s.v_min = Some(v_min);
     s.v_max = Some(v_max);
     s.pinn.v_min = v_min;
@@ -211,17 +224,13 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
     let half = 0.5 * problem.grid.width();
     let x_unit = settings.pinn.x_unit_m.unwrap_or_else(|| half.min(X_UNIT_M));
     s.pinn.x_unit_m = Some(x_unit);
-    out.push(Choice {
-        setting: "pinn.x_unit_m",
-        value: x_unit.min(half),
-        unit: "m",
-        derived: settings.pinn.x_unit_m.is_none(),
-        rule: if settings.pinn.x_unit_m.is_some() {
-            given()
-        } else {
-            format!("half the model's width, at most {X_UNIT_M} m")
-        },
-    });
+    out.push(choice(
+        "pinn.x_unit_m",
+        x_unit.min(half),
+        "m",
+        settings.pinn.x_unit_m.is_none(),
+        || format!("half the model's width, at most {X_UNIT_M} m"),
+    ));
     // collocation from the section's area
     let area = problem.grid.width() * problem.depth_m;
     let colloc = settings.pinn.collocation.unwrap_or_else(|| {
@@ -229,20 +238,18 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
         ((COLLOCATION_PER_M2 * area / 256.0).round() as usize * 256).clamp(lo, hi)
     });
     s.pinn.collocation = Some(colloc);
-    out.push(Choice {
-        setting: "pinn.collocation",
-        value: colloc as f64,
-        unit: "points",
-        derived: settings.pinn.collocation.is_none(),
-        rule: if settings.pinn.collocation.is_some() {
-            given()
-        } else {
+    out.push(choice(
+        "pinn.collocation",
+        colloc as f64,
+        "points",
+        settings.pinn.collocation.is_none(),
+        || {
             format!(
                 "{:.2} per m² of the {area:.0} m² section, in multiples of 256, within {}..{}",
                 COLLOCATION_PER_M2, COLLOCATION_RANGE.0, COLLOCATION_RANGE.1
             )
         },
-    });
+    ));
     // detail wavelength from the receiver spacing
     let wl = settings.refine.detail_wavelength_m.unwrap_or_else(|| {
         let w = DETAIL_SPACINGS * sc.receiver_spacing_m;
@@ -253,45 +260,37 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
         }
     });
     s.refine.detail_wavelength_m = Some(wl);
-    out.push(Choice {
-        setting: "refine.detail_wavelength_m",
-        value: wl,
-        unit: "m",
-        derived: settings.refine.detail_wavelength_m.is_none(),
-        rule: if settings.refine.detail_wavelength_m.is_some() {
-            given()
-        } else {
+    out.push(choice(
+        "refine.detail_wavelength_m",
+        wl,
+        "m",
+        settings.refine.detail_wavelength_m.is_none(),
+        || {
             format!(
                 "{DETAIL_SPACINGS} × the receiver spacing ({:.2} m), at least {DETAIL_MIN_M} m",
                 sc.receiver_spacing_m
             )
         },
-    });
-    out.push(Choice {
-        setting: "depth_m",
-        value: problem.depth_m,
-        unit: "m",
-        derived: settings.depth_m.is_none(),
-        rule: if settings.depth_m.is_some() {
-            given()
-        } else {
-            format!(
-                "1.5 × the starting model's deepest turning ray ({:.1} m) + 3 m, at least 10 m, rounded up",
-                problem.start.deepest_turning_m
-            )
+    ));
+    out.push(choice(
+        "depth_m",
+        problem.depth_m,
+        "m",
+        settings.depth_m.is_none(),
+        || {
+        format!(
+            "1.5 × the starting model's deepest turning ray ({:.1} m) + 3 m, at least 10 m, rounded up",
+            problem.start.deepest_turning_m
+        )
         },
-    });
-    out.push(Choice {
-        setting: "cell_m",
-        value: problem.cell_m,
-        unit: "m",
-        derived: settings.cell_m.is_none(),
-        rule: if settings.cell_m.is_some() {
-            given()
-        } else {
-            "the smaller of 0.5 m and a quarter of the receiver spacing".into()
-        },
-    });
+    ));
+    out.push(choice(
+        "cell_m",
+        problem.cell_m,
+        "m",
+        settings.cell_m.is_none(),
+        || "the smaller of 0.5 m and a quarter of the receiver spacing".into(),
+    ));
     (s, out)
 }
 
