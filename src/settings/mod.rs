@@ -103,10 +103,17 @@ impl RunSettings {
                     None => "not valid TOML".into(),
                 };
             }
+            let moved = ["`v_min`", "`v_max`"]
+                .iter()
+                .any(|f| msg.starts_with(&format!("unknown field {f}")));
             let err = match line {
                 Some(l) => InputError::at(path, l, msg),
                 None => InputError::file(path, msg),
             };
+            if moved {
+                // the bounds left the [pinn] table for the top level (shared by methods)
+                return err.hint("the velocity bounds v_min and v_max are set at the top of the file now, above the first [table], shared by every method");
+            }
             err.hint("see `slowfield invert --help` and the settings.toml an earlier run wrote for every field and its default")
         })
     }
@@ -189,6 +196,18 @@ mod tests {
         let m = e.to_string();
         assert!(m.starts_with("s.toml:4:"), "{m}");
         assert!(m.contains("stepz"), "{m}");
+    }
+
+    #[test]
+    fn bounds_in_the_pinn_table_are_sent_to_the_top_level() {
+        let e = RunSettings::parse(Path::new("s.toml"), "[pinn]\nsteps = 10\nv_max = 4000.0\n")
+            .unwrap_err();
+        let m = e.to_string();
+        assert!(m.starts_with("s.toml:3:"), "{m}");
+        assert!(m.contains("at the top of the file"), "{m}");
+        assert!(
+            RunSettings::parse(Path::new("s.toml"), "v_max = 4000.0\n[pinn]\nsteps = 10\n").is_ok()
+        );
     }
 
     #[test]
