@@ -448,6 +448,8 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         let (c, d) = truth_here.range();
         (a.min(c), b.max(d))
     };
+    let receivers = survey.receivers();
+    let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
     for (stem, m, title) in [
         ("truth", &truth_here, format!("{}: true velocity", c.name)),
         (
@@ -462,6 +464,8 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         let decor = slowfield::figures::SectionDecor {
             title,
             surface: Some(&survey.surface),
+            receivers: &receivers,
+            sources: &sources,
             covered: Some(covered),
             v_range: Some((lo, hi)),
             footnote: Some("pale: no ray coverage in the inverted model".into()),
