@@ -151,8 +151,20 @@ pub fn trace_ray(
     let mut points = vec![receiver];
     let mut p = receiver;
     let mut reached = false;
+    // squares and a plain root, not `hypot`: the loop runs hundreds of times a ray
+    // and `hypot`'s overflow care cost a tenth of a grid tomography run (the values
+    // are metres and seconds per metre, far from overflow)
+    let step2 = step * step;
+    // A source on the ground surface may lie above the level a ray is held under (half
+    // way between the last ground node and the first air node): a ray pushed back under
+    // it next to the source could then never come within one step and would run to the
+    // step limit. Within two cells of the source, a pushed ray ends straight at it.
+    let near2 = (2.0 * spec.dx.min(spec.dz)).powi(2);
+    let mut pushed = false;
     for n in 0..max_steps {
-        if p.dist(&src) <= step {
+        let (ex, ez) = (p.x - src.x, p.z - src.z);
+        let d2 = ex * ex + ez * ez;
+        if d2 <= step2 || (pushed && d2 <= near2) {
             points.push(src);
             reached = true;
             break;
@@ -160,7 +172,7 @@ pub fn trace_ray(
         let (gx, gz) = field
             .gradient_at(p)
             .map_err(|_| fail(n, "it left the ground the wave travelled through"))?;
-        let g = gx.hypot(gz);
+        let g = (gx * gx + gz * gz).sqrt();
         if !(g > 0.0 && g.is_finite()) {
             return Err(fail(
                 n,
@@ -181,6 +193,7 @@ pub fn trace_ray(
             }
             q.z = (q.z - 0.1 * spec.dz).max(spec.z0);
         }
+        pushed = tries > 0;
         points.push(q);
         p = q;
     }
@@ -192,7 +205,7 @@ pub fn trace_ray(
     let mut length = 0.0;
     for w in points.windows(2) {
         let (a, b) = (w[0], w[1]);
-        let l = a.dist(&b);
+        let l = ((b.x - a.x).powi(2) + (b.z - a.z).powi(2)).sqrt();
         if l <= 0.0 {
             continue;
         }
