@@ -24,8 +24,11 @@
 //!
 //! Run: `cargo run --release --example site_suite [case …]` (cases: flat, lens, topo,
 //! demo, sparse, short, hardrock, line120, line240, line480, line960; all but line960 by
-//! default, `all` for every one). `PINN_CONFIG=run.toml` overrides the settings (same
-//! format as `slowfield invert --config`). The table goes to the terminal and to
+//! default, `all` for every one). `SUITE_METHODS` lists the methods, each `pinn`,
+//! `grid` or `grid:<regulariser>` (default: the PINN and grid tomography with each of
+//! its five regularisers, every case with every method). `SUITE_CONFIG=run.toml`
+//! overrides the settings (same format as `slowfield invert --config`; its `method` is
+//! replaced by each of `SUITE_METHODS`). The table goes to the terminal and to
 //! `target/site_suite/table.md`.
 
 use std::path::{Path, PathBuf};
@@ -324,7 +327,7 @@ struct Row {
     peak_mb: f64,
     judge_chi2: f64,
     grid_chi2: f64,
-    net_chi2: f64,
+    net_chi2: Option<f64>,
     median_pct: f64,
     p90_pct: f64,
     refractor: Option<f64>,
@@ -332,6 +335,8 @@ struct Row {
     /// the refinement's true χ² per outer iteration, '*' on the accepted ones
     refine: String,
     warnings: usize,
+    /// grid tomography: seconds of fast marching / rays / LSQR
+    split: String,
 }
 
 /// Keeps the last training checkpoint (for `PINN_RESUME`).
@@ -473,17 +478,27 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         };
         slowfield::figures::velocity_section(&out.join(stem), m, &decor)?;
     }
-    let slowfield::inversion::MethodDetail::Pinn(p) = &inv.detail;
+    let (steps, split) = match &inv.detail {
+        slowfield::inversion::MethodDetail::Pinn(p) => (p.steps, String::new()),
+        slowfield::inversion::MethodDetail::Grid(g) => (
+            g.forward.solves.saturating_sub(1),
+            format!(
+                "{:.1} / {:.1} / {:.1}",
+                g.seconds_fmm, g.seconds_rays, g.seconds_lsqr
+            ),
+        ),
+    };
     Ok(Row {
         case: c.name.to_string(),
-        method: inv.method.name().to_string(),
+        method: inv.label.clone(),
         picks: survey.picks.len(),
-        steps: p.steps,
+        steps,
+        split,
         seconds,
         peak_mb: peak_mb(),
         judge_chi2: inv.judge.misfit.chi2,
         grid_chi2: inv.judge.inversion_grid.chi2,
-        net_chi2: inv.own_fit.as_ref().map_or(f64::NAN, |o| o.misfit.chi2),
+        net_chi2: inv.own_fit.as_ref().map(|o| o.misfit.chi2),
         median_pct: err.median_pct,
         p90_pct: err.p90_pct,
         refractor: err.interface_mean_abs_m,
@@ -510,12 +525,46 @@ const DEFAULT_CASES: [&str; 10] = [
     "flat", "lens", "topo", "demo", "sparse", "short", "hardrock", "line120", "line240", "line480",
 ];
 
+/// Methods run when `SUITE_METHODS` is not set: the PINN and grid tomography with
+/// each of its regularisers.
+const DEFAULT_METHODS: &str = "pinn,grid:smoothness,grid:total_variation,grid:minimum_support,grid:wavelet_haar,grid:wavelet_d4";
+
+/// The settings of one method of `SUITE_METHODS` (`pinn`, `grid` or
+/// `grid:<regulariser>`) over the suite's settings.
+fn with_method(base: &RunSettings, method: &str) -> anyhow::Result<RunSettings> {
+    let mut s = base.clone();
+    let (name, reg) = method.split_once(':').unwrap_or((method, ""));
+    match name {
+        "pinn" => s.method = slowfield::settings::Method::Pinn,
+        "grid" => {
+            s.method = slowfield::settings::Method::Grid;
+            if !reg.is_empty() {
+                s.grid.regulariser = slowfield::settings::GridRegulariser::ALL
+                    .into_iter()
+                    .find(|r| r.name() == reg)
+                    .ok_or_else(|| anyhow::anyhow!("no grid regulariser {reg}"))?;
+            }
+        }
+        _ => anyhow::bail!("no method {name}: pinn, grid or grid:<regulariser>"),
+    }
+    Ok(s)
+}
+
 fn main() -> anyhow::Result<()> {
     let args: Vec<String> = std::env::args().skip(1).collect();
-    let settings = match std::env::var_os("PINN_CONFIG") {
+    let base = match std::env::var_os("SUITE_CONFIG").or_else(|| std::env::var_os("PINN_CONFIG")) {
         Some(p) => RunSettings::read(Path::new(&p)).map_err(|e| anyhow::anyhow!("{e}"))?,
         None => RunSettings::default(),
     };
+    let methods: Vec<String> = std::env::var("SUITE_METHODS")
+        .unwrap_or_else(|_| DEFAULT_METHODS.into())
+        .split(',')
+        .map(|m| m.trim().to_string())
+        .filter(|m| !m.is_empty())
+        .collect();
+    for m in &methods {
+        with_method(&base, m)?;
+    }
     // SUITE_OUT=DIR writes the run folders and the table there instead
     let root = std::env::var_os("SUITE_OUT").map_or_else(
         || Path::new(env!("CARGO_MANIFEST_DIR")).join("target/site_suite"),
@@ -530,7 +579,10 @@ fn main() -> anyhow::Result<()> {
             .into_iter()
             .find(|c| c.name == name)
             .ok_or_else(|| anyhow::anyhow!("no case {name}"))?;
-        let row = run_case(&c, &settings, &root.join(c.name))?;
+        let method = args.get(2).map_or("pinn", String::as_str);
+        let settings = with_method(&base, method)?;
+        let folder = format!("{}-{}", c.name, method.replace(':', "-"));
+        let row = run_case(&c, &settings, &root.join(folder))?;
         println!("{}", serde_json::to_string(&row)?);
         return Ok(());
     }
@@ -551,35 +603,37 @@ fn main() -> anyhow::Result<()> {
         }
     }
     std::fs::create_dir_all(&root)?;
-    let mut table = format!("| site | method | picks | steps | wall s | peak MB | judge χ² (half cell) | inversion-grid χ² | network χ² | median / p90 v err % (covered) | depth err of {:.0} m/s, m | lens v/beside (true) | warnings | refinement χ² per iteration (* accepted) |\n|---|---|---|---|---|---|---|---|---|---|---|---|---|---|\n", settings.interface_mps);
+    let mut table = format!("| site | method | picks | steps | wall s | fmm / rays / LSQR s | peak MB | judge χ² (half cell) | inversion-grid χ² | network χ² | median / p90 v err % (covered) | depth err of {:.0} m/s, m | lens v/beside (true) | warnings | linearised χ² per iteration (* accepted) |\n|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|\n", base.interface_mps);
     print!("{table}");
     for c in all.iter().filter(|c| wanted.contains(&c.name)) {
         if c.picks_file.is_some() && c.truth_grid.is_none() {
             eprintln!("{}: demo-picks/true-model.csv missing, skipped", c.name);
             continue;
         }
-        let child = std::process::Command::new(std::env::current_exe()?)
-            .args(["--child", c.name])
-            .stderr(std::process::Stdio::inherit())
-            .output()?;
-        if !child.status.success() {
-            eprintln!("{}: failed ({})", c.name, child.status);
-            continue;
-        }
-        let text = String::from_utf8_lossy(&child.stdout);
-        let line = text.lines().last().unwrap_or_default();
-        let r: Row = serde_json::from_str(line)?;
-        let row = format!(
-            "| {} | {} | {} | {} | {:.0} | {:.0} | {:.2} | {:.2} | {:.2} | {:.1} / {:.1} | {} | {} | {} | {} |\n",
+        for method in &methods {
+            let child = std::process::Command::new(std::env::current_exe()?)
+                .args(["--child", c.name, method])
+                .stderr(std::process::Stdio::inherit())
+                .output()?;
+            if !child.status.success() {
+                eprintln!("{} {method}: failed ({})", c.name, child.status);
+                continue;
+            }
+            let text = String::from_utf8_lossy(&child.stdout);
+            let line = text.lines().last().unwrap_or_default();
+            let r: Row = serde_json::from_str(line)?;
+            let row = format!(
+            "| {} | {} | {} | {} | {:.0} | {} | {:.0} | {:.2} | {:.2} | {} | {:.1} / {:.1} | {} | {} | {} | {} |\n",
             r.case,
             r.method,
             r.picks,
             r.steps,
             r.seconds,
+            if r.split.is_empty() { "–" } else { &r.split },
             r.peak_mb,
             r.judge_chi2,
             r.grid_chi2,
-            r.net_chi2,
+            r.net_chi2.map_or("–".into(), |c| format!("{c:.2}")),
             r.median_pct,
             r.p90_pct,
             r.refractor.map_or("–".into(), |d| format!("{d:.2}")),
@@ -588,9 +642,10 @@ fn main() -> anyhow::Result<()> {
             r.warnings,
             r.refine,
         );
-        print!("{row}");
-        table.push_str(&row);
-        std::fs::write(root.join("table.md"), &table)?;
+            print!("{row}");
+            table.push_str(&row);
+            std::fs::write(root.join("table.md"), &table)?;
+        }
     }
     Ok(())
 }

@@ -7,7 +7,7 @@ use std::process::ExitCode;
 use clap::{Args, Parser, Subcommand};
 
 use crate::jobs::{self, CheckRequest, DemoRequest, ForwardRequest, InvertRequest, Overrides};
-use crate::settings::{self, Regulariser};
+use crate::settings::{self, GridRegulariser};
 
 /// Seismic first-arrival picks to a velocity section of the shallow ground.
 #[derive(Debug, Parser)]
@@ -25,7 +25,7 @@ pub enum Command {
     Check(CheckArgs),
     /// Fast-marching travel times of a model for the geometry of a picks file (also makes synthetic picks).
     Forward(ForwardArgs),
-    /// Invert picks for a velocity section (PINN, refined against fast marching), checked by fast marching.
+    /// Invert picks for a velocity section (PINN refined against fast marching, or grid tomography), checked by fast marching.
     Invert(InvertArgs),
     /// Run the whole job on the shipped demo picks.
     Demo(DemoArgs),
@@ -93,6 +93,8 @@ pub struct ForwardArgs {
 pub enum MethodFlag {
     /// Physics-informed neural network (mesh-free).
     Pinn,
+    /// Grid tomography (Gauss–Newton on cells, LSQR).
+    Grid,
 }
 
 /// Model regulariser (flag form).
@@ -104,6 +106,10 @@ pub enum RegFlag {
     TotalVariation,
     /// Sharp boundaries between zones (minimum gradient support).
     MinimumSupport,
+    /// Few Haar wavelet coefficients of the change from the start (L1; grid only).
+    WaveletHaar,
+    /// Few Daubechies-4 wavelet coefficients of the change from the start (L1; grid only).
+    WaveletD4,
 }
 
 /// Arguments of `invert`.
@@ -146,10 +152,15 @@ pub struct InvertArgs {
     /// velocity of the far-offset branches; the report lists the value used).
     #[arg(long, value_name = "MPS")]
     pub v_max: Option<f64>,
-    /// Model regulariser of both stages (their weights: `[pinn] reg_weight` and
-    /// `[refine] reg_weight` in the settings).
+    /// Model regulariser: of both PINN stages (weights `[pinn] reg_weight`,
+    /// `[refine] reg_weight`), or of grid tomography (`[grid] reg_weight`, chosen by
+    /// the run when left out). The wavelet kinds are grid tomography's alone.
     #[arg(long, value_enum)]
     pub regulariser: Option<RegFlag>,
+    /// Grid tomography's cell size, m (default: half the receiver spacing, made a
+    /// whole number of solver cells; the report lists the value used).
+    #[arg(long, value_name = "M")]
+    pub cell: Option<f64>,
     /// Worker threads (results do not depend on it).
     #[arg(long)]
     pub threads: Option<usize>,
@@ -201,7 +212,9 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             overrides: Overrides {
                 method: a.method.map(|m| match m {
                     MethodFlag::Pinn => settings::Method::Pinn,
+                    MethodFlag::Grid => settings::Method::Grid,
                 }),
+                cell: a.cell,
                 dim: a.dim,
                 steps: a.steps,
                 refine: a.refine,
@@ -210,9 +223,11 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 v_min: a.v_min,
                 v_max: a.v_max,
                 regulariser: a.regulariser.map(|r| match r {
-                    RegFlag::Smoothness => Regulariser::Smoothness,
-                    RegFlag::TotalVariation => Regulariser::TotalVariation,
-                    RegFlag::MinimumSupport => Regulariser::MinimumSupport,
+                    RegFlag::Smoothness => GridRegulariser::Smoothness,
+                    RegFlag::TotalVariation => GridRegulariser::TotalVariation,
+                    RegFlag::MinimumSupport => GridRegulariser::MinimumSupport,
+                    RegFlag::WaveletHaar => GridRegulariser::WaveletHaar,
+                    RegFlag::WaveletD4 => GridRegulariser::WaveletD4,
                 }),
                 threads: a.threads,
             },

@@ -225,6 +225,11 @@ pub struct InnerSolution {
     pub predicted_chi2: f64,
     /// Something the user should know (e.g. the solver stopped early), if any.
     pub note: Option<String>,
+    /// Weight of the regulariser in the objective that was minimised.
+    pub weight: f64,
+    /// The inner solver failed: `params` are not a step to take, the loop stops
+    /// and keeps its best iterate (the note says why).
+    pub failed: bool,
 }
 
 /// The method's side of the outer loop. An error stops the loop with its message.
@@ -234,6 +239,18 @@ pub trait InnerProblem {
     /// Minimises the method's objective linearised by `lin` at `p` (whose velocity is
     /// `v`).
     fn solve(&mut self, p: &[f64], v: &[f64], lin: Linearisation) -> Result<InnerSolution, String>;
+    /// What the method carries from one solve to the next (e.g. a cooling
+    /// regularisation weight), saved with the loop's state so that a resumed loop
+    /// goes on exactly; empty when nothing is carried.
+    fn carried(&self) -> Vec<f64> {
+        Vec::new()
+    }
+    /// Takes back what [`InnerProblem::carried`] gave, on resume.
+    fn restore(&mut self, _carried: &[f64]) {}
+    /// An iterate became the best so far, reached by `step` (the share of its inner
+    /// solution; 1: the full step; 0: the start), just before the solve from it: a
+    /// method may adapt, e.g. lower its weight only after full steps.
+    fn on_accept(&mut self, _step: f64) {}
 }
 
 /// Settings of the outer loop.
@@ -266,6 +283,8 @@ pub struct OuterLog {
     pub step: f64,
     /// Whether the model became the new best iterate.
     pub accepted: bool,
+    /// Regulariser weight of the solve that proposed this model (`NaN` at the start).
+    pub weight: f64,
 }
 
 /// Everything the loop needs to continue at the start of an iteration.
@@ -291,10 +310,14 @@ pub struct OuterState {
     pub best_iteration: usize,
     /// Every iteration so far.
     pub history: Vec<OuterLog>,
+    /// What the method carries between solves ([`InnerProblem::carried`]).
+    pub carried: Vec<f64>,
+    /// Regulariser weight of the solve that proposed `params`.
+    pub weight: f64,
 }
 
 const STATE_MAGIC: &[u8; 8] = b"SFOUTERS";
-const STATE_VERSION: u32 = 3;
+const STATE_VERSION: u32 = 4;
 
 impl OuterState {
     /// The outer iteration this state continues with.
@@ -319,11 +342,20 @@ impl OuterState {
         put_u64(&mut w, self.history.len() as u64);
         for h in &self.history {
             put_u64(&mut w, h.iteration as u64);
-            for x in [h.chi2, h.rms_ms, h.regulariser, h.predicted_chi2, h.step] {
+            for x in [
+                h.chi2,
+                h.rms_ms,
+                h.regulariser,
+                h.predicted_chi2,
+                h.step,
+                h.weight,
+            ] {
                 put_f64(&mut w, x);
             }
             w.push(u8::from(h.accepted));
         }
+        put_f64s(&mut w, &self.carried);
+        put_f64(&mut w, self.weight);
         w
     }
 
@@ -340,11 +372,11 @@ impl OuterState {
         let best_chi2 = r.f64()?;
         let best_params = r.f64s()?;
         let best_iteration = r.u64()? as usize;
-        let n = r.len(8 * 6 + 1)?;
+        let n = r.len(8 * 7 + 1)?;
         let mut history = Vec::with_capacity(n);
         for _ in 0..n {
             let iteration = r.u64()? as usize;
-            let mut f = [0.0; 5];
+            let mut f = [0.0; 6];
             for x in &mut f {
                 *x = r.f64()?;
             }
@@ -360,9 +392,12 @@ impl OuterState {
                 regulariser: f[2],
                 predicted_chi2: f[3],
                 step: f[4],
+                weight: f[5],
                 accepted,
             });
         }
+        let carried = r.f64s()?;
+        let weight = r.f64()?;
         r.finish()?;
         if best_params.len() != params.len() || !(full.is_empty() || full.len() == params.len()) {
             return Err("its parameter vectors differ in length".into());
@@ -381,6 +416,8 @@ impl OuterState {
             best_params,
             best_iteration,
             history,
+            carried,
+            weight,
         })
     }
 }
@@ -409,6 +446,8 @@ pub enum OuterStop {
     Stalled,
     /// The forward solve gave a non-finite χ².
     NotFinite,
+    /// The inner solver failed (the notes say why); the best iterate is kept.
+    InnerFailed,
 }
 
 /// The result of [`run`].
@@ -464,6 +503,8 @@ pub fn run(
         best_iteration: 0,
         history: Vec::new(),
         params: start,
+        carried: Vec::new(),
+        weight: f64::NAN,
     };
     let (mut st, resumed_from) = match resume {
         Some(r)
@@ -475,8 +516,12 @@ pub fn run(
         }
         _ => (fresh, None),
     };
+    if resumed_from.is_some() {
+        inner.restore(&st.carried);
+    }
     let mut notes = Vec::new();
     let stop = loop {
+        st.carried = inner.carried();
         observer.on_state(&st);
         let it = st.iteration;
         let (v, reg) = inner.velocity(&st.params)?;
@@ -491,6 +536,7 @@ pub fn run(
             predicted_chi2: st.predicted,
             step: st.step,
             accepted,
+            weight: st.weight,
         };
         observer.on_iteration(&log);
         st.history.push(log);
@@ -508,10 +554,15 @@ pub fn run(
             if it == settings.iterations {
                 break OuterStop::Iterations;
             }
+            inner.on_accept(st.step);
             let next = inner.solve(&st.params, &v, lin)?;
             if let Some(n) = next.note {
                 notes.push((it, n));
             }
+            if next.failed {
+                break OuterStop::InnerFailed;
+            }
+            st.weight = next.weight;
             st.full = next.params.clone();
             st.params = next.params;
             st.step = 1.0;

@@ -34,12 +34,94 @@ pub enum Regulariser {
 }
 
 impl Regulariser {
+    /// The weight of one point in iteratively reweighted least squares: `φ'(g²)` at
+    /// the current `g2`, so that minimising `Σ w·g²` with `w` held has the same
+    /// stationary point as minimising `Σ φ(g²)` (the reweighting of Rudin, Osher &
+    /// Fatemi's total variation and of Portniaguine & Zhdanov's minimum support).
+    pub fn irls_weight(self, g2: f64) -> f64 {
+        match self {
+            Regulariser::Smoothness => 1.0,
+            Regulariser::TotalVariation => 0.5 / (g2 + TV_EPSILON * TV_EPSILON).sqrt(),
+            Regulariser::MinimumSupport => {
+                let b2 = MIN_SUPPORT_BETA * MIN_SUPPORT_BETA;
+                b2 / ((g2 + b2) * (g2 + b2))
+            }
+        }
+    }
+
     /// The penalty of one point with squared scaled gradient `g2`.
     pub fn penalty(self, g2: f64) -> f64 {
         match self {
             Regulariser::Smoothness => g2,
             Regulariser::TotalVariation => (g2 + TV_EPSILON * TV_EPSILON).sqrt(),
             Regulariser::MinimumSupport => g2 / (g2 + MIN_SUPPORT_BETA * MIN_SUPPORT_BETA),
+        }
+    }
+}
+
+/// ε of the L1 norm of wavelet coefficients, `|c| ≈ c²/(|c_k| + ε)` in the
+/// reweighting: small against the coefficients of a slowness change of a tenth of the
+/// bounds' width over one cell.
+pub const WAVELET_EPSILON: f64 = 1e-3;
+
+/// The regularisers of grid tomography: the three gradient penalties above on the
+/// cells' scaled velocity gradient, or sparsity of the slowness change (from the
+/// starting model) in an orthonormal wavelet basis, L1 of its 2-D Haar or
+/// Daubechies-4 coefficients (Daubechies, Defrise & De Mol 2004, Comm. Pure Appl.
+/// Math. 57; Loris et al. 2007, Geophys. J. Int. 170).
+#[derive(Serialize, Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
+#[serde(rename_all = "snake_case")]
+pub enum GridRegulariser {
+    /// Smoothness of the velocity, separate weights along and across the line.
+    Smoothness,
+    /// Total variation of the velocity.
+    TotalVariation,
+    /// Minimum gradient support of the velocity.
+    MinimumSupport,
+    /// L1 of the 2-D Haar coefficients of the slowness change.
+    WaveletHaar,
+    /// L1 of the 2-D Daubechies-4 coefficients of the slowness change.
+    WaveletD4,
+}
+
+impl GridRegulariser {
+    /// Every kind, in the order of the reports.
+    pub const ALL: [GridRegulariser; 5] = [
+        GridRegulariser::Smoothness,
+        GridRegulariser::TotalVariation,
+        GridRegulariser::MinimumSupport,
+        GridRegulariser::WaveletHaar,
+        GridRegulariser::WaveletD4,
+    ];
+
+    /// The gradient penalty, for the first three kinds.
+    pub fn gradient(self) -> Option<Regulariser> {
+        match self {
+            GridRegulariser::Smoothness => Some(Regulariser::Smoothness),
+            GridRegulariser::TotalVariation => Some(Regulariser::TotalVariation),
+            GridRegulariser::MinimumSupport => Some(Regulariser::MinimumSupport),
+            GridRegulariser::WaveletHaar | GridRegulariser::WaveletD4 => None,
+        }
+    }
+
+    /// The name used in settings files and reports.
+    pub fn name(self) -> &'static str {
+        match self {
+            GridRegulariser::Smoothness => "smoothness",
+            GridRegulariser::TotalVariation => "total_variation",
+            GridRegulariser::MinimumSupport => "minimum_support",
+            GridRegulariser::WaveletHaar => "wavelet_haar",
+            GridRegulariser::WaveletD4 => "wavelet_d4",
+        }
+    }
+}
+
+impl From<Regulariser> for GridRegulariser {
+    fn from(r: Regulariser) -> GridRegulariser {
+        match r {
+            Regulariser::Smoothness => GridRegulariser::Smoothness,
+            Regulariser::TotalVariation => GridRegulariser::TotalVariation,
+            Regulariser::MinimumSupport => GridRegulariser::MinimumSupport,
         }
     }
 }
@@ -129,6 +211,24 @@ mod tests {
             mean(Regulariser::Smoothness, &zero, &ramp),
         );
         assert!(sm.1 < sm.0, "{sm:?}");
+    }
+
+    /// The reweighting weight is the slope of the penalty in `g²`: held against
+    /// central differences of [`Regulariser::penalty`].
+    #[test]
+    fn irls_weight_is_the_penalty_slope() {
+        for kind in [
+            Regulariser::Smoothness,
+            Regulariser::TotalVariation,
+            Regulariser::MinimumSupport,
+        ] {
+            for g2 in [1e-4, 0.01, 0.09, 1.0, 9.0] {
+                let h = 1e-6 * g2;
+                let fd = (kind.penalty(g2 + h) - kind.penalty(g2 - h)) / (2.0 * h);
+                let w = kind.irls_weight(g2);
+                assert!((w - fd).abs() < 1e-6 * fd.abs().max(1e-9), "{kind:?} {g2}");
+            }
+        }
     }
 
     /// A linear field has the same slope everywhere: the grid form gives exactly the

@@ -230,6 +230,33 @@ pub struct FmmMisfit<'a> {
     sigma_s: Vec<f64>,
     opts: FmmOptions,
     ray_opts: eikonal::RayOptions,
+    timings: std::cell::Cell<ForwardTimings>,
+}
+
+/// Where the forward solves' time went.
+#[derive(Debug, Clone, Copy, Default, PartialEq, serde::Serialize)]
+pub struct ForwardTimings {
+    /// Forward solves of every shot.
+    pub solves: usize,
+    /// Wall-clock seconds of them, fast marching and rays together.
+    pub wall_s: f64,
+    /// Seconds of ray tracing summed over the worker threads.
+    pub ray_thread_s: f64,
+    /// Worker threads.
+    pub threads: usize,
+}
+
+impl ForwardTimings {
+    /// Wall-clock seconds of the ray tracing, estimated as its thread time shared
+    /// among the threads (shots are spread evenly over them).
+    pub fn rays_wall_s(&self) -> f64 {
+        (self.ray_thread_s / self.threads.max(1) as f64).min(self.wall_s)
+    }
+
+    /// Wall-clock seconds of fast marching: the rest.
+    pub fn fmm_wall_s(&self) -> f64 {
+        self.wall_s - self.rays_wall_s()
+    }
 }
 
 impl<'a> FmmMisfit<'a> {
@@ -244,14 +271,22 @@ impl<'a> FmmMisfit<'a> {
             sigma_s,
             opts: FmmOptions::default(),
             ray_opts: eikonal::RayOptions::default(),
+            timings: std::cell::Cell::new(ForwardTimings::default()),
         }
+    }
+
+    /// Where the time of the solves so far went.
+    pub fn timings(&self) -> ForwardTimings {
+        self.timings.get()
     }
 
     /// Residuals (observed − predicted) and rays of every pick through `velocity` (m/s
     /// at the nodes of the grid, NaN = air), in file order.
     pub fn linearise(&self, velocity: &[f64]) -> Result<Linearisation, VerifyError> {
+        let t0 = std::time::Instant::now();
         let slowness: Vec<f64> = velocity.iter().map(|&v| 1.0 / v).collect();
         let ray_opts = self.ray_opts;
+        let ray_ns = std::sync::atomic::AtomicU64::new(0);
         let per = eikonal::map_shots(
             &self.spec,
             &slowness,
@@ -260,10 +295,21 @@ impl<'a> FmmMisfit<'a> {
             &self.opts,
             |f, r| {
                 let t = f.time_at(r);
+                let tr = std::time::Instant::now();
                 let ray = eikonal::trace_ray(f, r, &ray_opts).ok();
+                ray_ns.fetch_add(
+                    tr.elapsed().as_nanos() as u64,
+                    std::sync::atomic::Ordering::Relaxed,
+                );
                 (t, ray)
             },
         )?;
+        let mut tm = self.timings.get();
+        tm.solves += 1;
+        tm.wall_s += t0.elapsed().as_secs_f64();
+        tm.ray_thread_s += ray_ns.into_inner() as f64 * 1e-9;
+        tm.threads = rayon::current_num_threads().min(self.sources.len()).max(1);
+        self.timings.set(tm);
         let n = self.survey.picks.len();
         let mut residual_s = vec![0.0; n];
         let mut rows = vec![Vec::new(); n];

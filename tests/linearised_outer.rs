@@ -52,6 +52,8 @@ impl InnerProblem for Overshoot {
             params: p.iter().zip(&ds).map(|(a, b)| a + b).collect(),
             predicted_chi2,
             note: None,
+            weight: 0.0,
+            failed: false,
         })
     }
 }
@@ -212,6 +214,8 @@ fn inner_failures_and_early_stops_are_reported() {
                     params: p.iter().map(|s| 0.5 * (s + 1.0)).collect(),
                     predicted_chi2: f64::NAN,
                     note: Some("line search gave up".into()),
+                    weight: 0.0,
+                    failed: false,
                 })
             }
         }

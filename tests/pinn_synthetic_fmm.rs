@@ -18,7 +18,9 @@ use slowfield::survey::Surface;
 mod common;
 
 fn report(what: &str, inv: &Inversion, err: &TruthError) {
-    let MethodDetail::Pinn(pinn) = &inv.detail;
+    let MethodDetail::Pinn(pinn) = &inv.detail else {
+        panic!("a PINN run reports the PINN's detail")
+    };
     eprintln!(
         "{what}: steps {} in {:.1} s; judge ({} m grid) chi2 {:.3}, rms {:.3} ms; inversion grid chi2 {:.3}; median error {:.2} %, p90 {:.2} % over {} nodes",
         pinn.steps,

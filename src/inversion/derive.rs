@@ -13,6 +13,7 @@ use crate::settings::RunSettings;
 use crate::survey::Survey;
 
 use super::Problem;
+use crate::settings::Method;
 
 /// What the survey's geometry and picks say about the ground's scales.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -291,7 +292,55 @@ pub fn resolve(problem: &Problem, settings: &RunSettings) -> (RunSettings, Vec<C
         settings.cell_m.is_none(),
         || "the smaller of 0.5 m and a quarter of the receiver spacing".into(),
     ));
+    match settings.method {
+        Method::Pinn => {}
+        Method::Grid => {
+            // the cells: a whole number of solver-grid spacings
+            let wanted = settings.grid.cell_m.unwrap_or_else(|| {
+                let c = GRID_CELL_SPACINGS * sc.receiver_spacing_m;
+                if c.is_finite() {
+                    c
+                } else {
+                    2.0 * problem.cell_m
+                }
+            });
+            let stride = grid_stride(wanted, problem.cell_m);
+            let cell = stride as f64 * problem.cell_m;
+            s.grid.cell_m = Some(cell);
+            let given = settings.grid.cell_m.is_some();
+            out.push(Choice {
+                setting: "grid.cell_m",
+                value: cell,
+                unit: "m",
+                derived: !given || (cell - wanted).abs() > 1e-9,
+                rule: match (given, (cell - wanted).abs() > 1e-9) {
+                    (true, false) => "given".into(),
+                    (true, true) => format!(
+                        "given {wanted} m, made a whole number of solver cells ({} m)",
+                        problem.cell_m
+                    ),
+                    (false, _) => format!(
+                        "{GRID_CELL_SPACINGS} × the receiver spacing ({:.2} m), made a whole number of solver cells ({} m)",
+                        sc.receiver_spacing_m, problem.cell_m
+                    ),
+                },
+            });
+        }
+    }
+    if settings.method != Method::Pinn {
+        out.retain(|c| !c.setting.starts_with("pinn.") && !c.setting.starts_with("refine."));
+    }
     (s, out)
+}
+
+/// Grid tomography's cell as a share of the receiver spacing (common practice: cells
+/// of half the geophone spacing resolve what the spread can, about one spacing).
+pub const GRID_CELL_SPACINGS: f64 = 0.5;
+
+/// Solver-grid spacings per cell for a wanted cell size: the nearest whole number, at
+/// least one.
+pub fn grid_stride(cell_m: f64, solver_cell_m: f64) -> usize {
+    ((cell_m / solver_cell_m).round() as usize).max(1)
 }
 
 #[cfg(test)]

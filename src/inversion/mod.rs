@@ -9,9 +9,11 @@
 //! and the jobs write the result.
 
 mod derive;
+mod grid;
 mod pinn;
 
 pub use derive::{Choice, SurveyScales};
+pub use grid::GridDetail;
 
 use std::time::Instant;
 
@@ -69,9 +71,19 @@ impl Problem {
         let depth_m = settings
             .depth_m
             .unwrap_or_else(|| (1.5 * start.deepest_turning_m + 3.0).max(10.0).ceil());
-        let cell_m = settings
+        let mut cell_m = settings
             .cell_m
             .unwrap_or_else(|| verify::default_cell(0.5, &survey));
+        // grid tomography's cells are whole solver cells: a finer cell asked for
+        // refines the solver grid too (unless that is given)
+        if let (Method::Grid, None, Some(c)) =
+            (settings.method, settings.cell_m, settings.grid.cell_m)
+        {
+            // (below a tenth of the judge's cell the method refuses the cell)
+            if c.is_finite() && c < cell_m && c >= 0.05 * cell_m {
+                cell_m = c;
+            }
+        }
         let (x0, x1) = survey.x_range();
         let zlow = survey
             .stations()
@@ -117,6 +129,16 @@ impl Problem {
             ));
         }
         Ok(())
+    }
+
+    /// The starting model's velocity at `depth` below the ground, m/s: the 1-D fit,
+    /// held below the deepest turning ray at the velocity reached there (no ray sees
+    /// deeper, so the start does not grow on) and below 0.9 × `v_max`. Every method
+    /// starts from it.
+    pub fn start_velocity(&self, v_max: f64, depth: f64) -> f64 {
+        let m = self.start.model;
+        let cap = m.velocity(self.start.deepest_turning_m).min(0.9 * v_max);
+        m.velocity(depth.max(0.0)).min(cap)
     }
 
     /// Misfit of `times` (s, one per pick) to the picks.
@@ -194,7 +216,20 @@ pub struct Coverage {
     pub fraction: f64,
     /// Rays that could not be traced (left out of the coverage).
     pub failed_rays: usize,
+    /// Derivative weight sum per node (Toomey & Foulger 1989, J. Geophys. Res. 94):
+    /// the sum over all rays of `∂T/∂s` at the node, i.e. the ray length attributed
+    /// to it, m; a resolution proxy (`NaN` in the air).
+    #[serde(skip)]
+    pub dws: Vec<f64>,
+    /// The rays as polylines (x, z), thinned to at most [`RAY_FIGURE_POINTS`] points
+    /// each, for the coverage figure.
+    #[serde(skip)]
+    pub rays: Vec<Vec<(f64, f64)>>,
 }
+
+/// Points kept of each ray for the coverage figure (a ray is traced in quarter-cell
+/// steps: thousands of points on a long line).
+pub const RAY_FIGURE_POINTS: usize = 64;
 
 /// One stage's course.
 #[derive(Debug, Clone, Serialize)]
@@ -261,6 +296,8 @@ pub struct PinnDetail {
 pub enum MethodDetail {
     /// The PINN.
     Pinn(PinnDetail),
+    /// Grid tomography.
+    Grid(GridDetail),
 }
 
 /// The result of any method.
@@ -328,10 +365,15 @@ pub fn run(
     let t0 = Instant::now();
     settings.validate().map_err(InversionError::Setting)?;
     problem.check_size().map_err(InversionError::Setting)?;
+    if settings.method == Method::Grid {
+        grid::check_cell(problem, settings)?;
+    }
     let (resolved, choices) = derive::resolve(problem, settings);
     let settings = &resolved;
+    feasible(problem, settings)?;
     let fitted = match settings.method {
         Method::Pinn => pinn::run(problem, settings, resume, observer)?,
+        Method::Grid => grid::run(problem, settings, resume, observer)?,
     };
     observer.on(Event::Judging);
     let mut fitted = fitted;
@@ -365,6 +407,58 @@ pub fn run(
         choices,
         seconds: t0.elapsed().as_secs_f64(),
     })
+}
+
+/// Refuses bounds that no model can honour before any work: the starting model must
+/// lie within them, and every pick must be reachable by some model within them. Fast
+/// marching is monotone in slowness, so the first arrival through any model within
+/// the bounds lies between the times through the constant-`v_max` and the
+/// constant-`v_min` ground; a pick more than 3σ (and 1 % for the solver's error)
+/// outside that range cannot be fitted.
+fn feasible(problem: &Problem, settings: &RunSettings) -> Result<(), InversionError> {
+    let (lo, hi) = (settings.pinn.v_min, settings.pinn.v_max);
+    let v_top = problem.start.model.v0;
+    let v_deep = problem.start_velocity(hi, problem.start.deepest_turning_m);
+    if v_top <= lo || v_top >= hi || v_deep <= lo {
+        return Err(InversionError::Setting(format!(
+            "the starting model fitted to the picks runs from {v_top:.0} to {v_deep:.0} m/s, outside the velocity bounds {lo}..{hi} m/s: widen v_min/v_max (or leave them out to derive them from the picks)"
+        )));
+    }
+    let constant = |v: f64| -> Result<Vec<f64>, InversionError> {
+        let g = problem.grid;
+        let model = VelocityGrid::from_fn(g, Some(&problem.survey.surface), |_, _| v);
+        Ok(verify::predict(
+            &problem.survey,
+            &model,
+            &FmmOptions::default(),
+        )?)
+    };
+    let fastest = constant(hi)?;
+    let slowest = constant(lo)?;
+    for (k, p) in problem.survey.picks.iter().enumerate() {
+        let sigma = problem.sigma_s[k];
+        if p.time < fastest[k] * 0.99 - 3.0 * sigma {
+            return Err(InversionError::Pick {
+                index: k,
+                problem: format!(
+                    "its time {:.2} ms is earlier than any ground within the velocity bounds allows ({:.2} ms through ground at v_max = {hi} m/s everywhere): raise v_max, or check the pick's time and the stations' positions",
+                    p.time * 1e3,
+                    fastest[k] * 1e3
+                ),
+            });
+        }
+        if p.time > slowest[k] * 1.01 + 3.0 * sigma {
+            return Err(InversionError::Pick {
+                index: k,
+                problem: format!(
+                    "its time {:.2} ms is later than any ground within the velocity bounds allows ({:.2} ms through ground at v_min = {lo} m/s everywhere): lower v_min, or check the pick's time and the stations' positions",
+                    p.time * 1e3,
+                    slowest[k] * 1e3
+                ),
+            });
+        }
+    }
+    Ok(())
 }
 
 /// χ² of the judge above which the section does not explain the picks to their
@@ -497,9 +591,33 @@ pub fn coverage(problem: &Problem, model: &VelocityGrid) -> Result<Coverage, Ver
     }
     let ground = (0..sp.len()).filter(|&k| !model.is_air(k)).count();
     let fraction = covered.iter().filter(|&&c| c).count() as f64 / ground.max(1) as f64;
+    let dws = total
+        .iter()
+        .enumerate()
+        .map(|(k, &c)| if model.is_air(k) { f64::NAN } else { c })
+        .collect();
+    let rays = rays
+        .iter()
+        .flatten()
+        .flatten()
+        .map(|r| {
+            let n = r.points.len();
+            let every = n.div_ceil(RAY_FIGURE_POINTS).max(1);
+            let mut line: Vec<(f64, f64)> =
+                r.points.iter().step_by(every).map(|p| (p.x, p.z)).collect();
+            if let Some(last) = r.points.last() {
+                if (n - 1) % every != 0 {
+                    line.push((last.x, last.z));
+                }
+            }
+            line
+        })
+        .collect();
     Ok(Coverage {
         covered,
         fraction,
         failed_rays,
+        dws,
+        rays,
     })
 }

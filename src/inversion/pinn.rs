@@ -37,17 +37,14 @@ pub fn engine_inputs(
         z_bottom: problem.grid.z0,
         surface: survey.surface.clone(),
     };
-    // The linear fit holds down to the deepest turning ray; below, no ray sees the
-    // ground, so the start keeps the velocity reached there instead of growing on.
-    let m = problem.start.model;
-    let v_cap = m
-        .velocity(problem.start.deepest_turning_m)
-        .min(0.9 * settings.pinn.v_max);
     let n = 24;
     let depth_m: Vec<f64> = (0..=n)
         .map(|k| problem.depth_m * k as f64 / n as f64)
         .collect();
-    let velocity = depth_m.iter().map(|&d| m.velocity(d).min(v_cap)).collect();
+    let velocity = depth_m
+        .iter()
+        .map(|&d| problem.start_velocity(settings.pinn.v_max, d))
+        .collect();
     (
         picks,
         domain,
@@ -56,7 +53,7 @@ pub fn engine_inputs(
 }
 
 /// Hands the engine's progress to the layer's observer.
-struct Relay<'a>(&'a mut dyn Observer);
+pub(super) struct Relay<'a>(pub(super) &'a mut dyn Observer);
 
 impl pinn::Observer for Relay<'_> {
     fn on_step(&mut self, s: &StepLog) {
@@ -84,18 +81,6 @@ pub(super) fn run(
 ) -> Result<Fitted, InversionError> {
     let s = settings;
     let (picks, domain, start) = engine_inputs(problem, s);
-    // the start model itself must lie within the bounds
-    let v_lo = problem.start.model.v0;
-    let v_hi = problem
-        .start
-        .model
-        .velocity(problem.start.deepest_turning_m);
-    if v_lo <= s.pinn.v_min || v_lo >= s.pinn.v_max || v_hi <= s.pinn.v_min {
-        return Err(InversionError::Setting(format!(
-            "the starting model fitted to the picks runs from {v_lo:.0} to {v_hi:.0} m/s, outside the velocity bounds {}..{} m/s: widen v_min/v_max",
-            s.pinn.v_min, s.pinn.v_max
-        )));
-    }
     let mut notes = Vec::new();
     let t_train = Instant::now();
     observer.on(Event::Stage {

@@ -13,13 +13,15 @@ use crate::linearised::OuterState;
 use crate::output::write_atomic;
 use crate::pinn::Checkpoint;
 use crate::report::InvertReport;
-use crate::settings::{Method, Regulariser, RunSettings};
+use crate::settings::{GridRegulariser, Method, RunSettings};
 use crate::survey::Survey;
 
 /// Name of the training checkpoint inside an output folder.
 pub const CHECKPOINT: &str = "checkpoint.bin";
 /// Name of the refinement stage's state inside an output folder.
 pub const REFINE_STATE: &str = "refine.bin";
+/// Name of grid tomography's state inside an output folder.
+pub const GRID_STATE: &str = "grid.bin";
 
 /// Settings given on the command line; each overrides the settings file.
 #[derive(Debug, Clone, Default)]
@@ -40,8 +42,10 @@ pub struct Overrides {
     pub v_min: Option<f64>,
     /// Highest velocity, m/s.
     pub v_max: Option<f64>,
-    /// Regulariser of both stages.
-    pub regulariser: Option<Regulariser>,
+    /// Regulariser: of both PINN stages, or of grid tomography.
+    pub regulariser: Option<GridRegulariser>,
+    /// Grid tomography's cell, m.
+    pub cell: Option<f64>,
     /// Worker threads.
     pub threads: Option<usize>,
 }
@@ -71,56 +75,45 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
         None => RunSettings::default(),
     };
     let mut resume = Resume::default();
+    let o = &req.overrides;
     if let Some(given) = &req.resume {
         // an interrupted run keeps its states in the work folder beside the output
         // folder; a finished run, in the output folder itself
         let work = work_dir(given)?;
-        let dir = if work.join(CHECKPOINT).exists() {
+        let dir = if [CHECKPOINT, GRID_STATE]
+            .iter()
+            .any(|n| work.join(n).exists())
+        {
             &work
         } else {
             given
         };
-        let rs_path = dir.join(REFINE_STATE);
-        if rs_path.exists() {
-            let bytes = std::fs::read(&rs_path)
-                .with_context(|| format!("cannot read {}", rs_path.display()))?;
-            let rs = OuterState::from_bytes(&bytes).map_err(|why| {
-                anyhow::anyhow!(
-                    "{}: the refinement state cannot be read: {why}; delete it to redo the refinement from the training checkpoint",
-                    rs_path.display()
-                )
-            })?;
-            resume.outer = Some(rs);
-        }
-        let cp_path = dir.join(CHECKPOINT);
-        let bytes = std::fs::read(&cp_path).with_context(|| {
-            format!(
-                "cannot read the checkpoint {}: resume from the output folder of an earlier run",
-                cp_path.display()
-            )
-        })?;
-        let cp = Checkpoint::from_bytes(&bytes)
-            .map_err(|e| anyhow::anyhow!("{}: {e}", cp_path.display()))?;
         if req.config.is_none() {
             let st = dir.join("settings.toml");
             if st.exists() {
                 s = RunSettings::read(&st).map_err(|e| anyhow::anyhow!("{e}"))?;
             }
         }
-        // the checkpoint holds the values the run derived from the survey as well;
-        // the settings keep them open as the file does (the run derives the same)
-        let open = s.pinn.clone();
-        s.pinn = serde_json::from_str(cp.settings_json()).with_context(|| {
-            format!(
-                "{}: the checkpoint's settings are unreadable",
-                cp_path.display()
-            )
-        })?;
-        s.pinn.x_unit_m = open.x_unit_m;
-        s.pinn.collocation = open.collocation;
-        resume.checkpoint = Some(cp);
+        match o.method.unwrap_or(s.method) {
+            Method::Pinn => resume_pinn(dir, &mut s, &mut resume)?,
+            Method::Grid => {
+                let path = dir.join(GRID_STATE);
+                let bytes = std::fs::read(&path).with_context(|| {
+                    format!(
+                        "cannot read the grid tomography state {}: resume from the output folder of an earlier `--method grid` run",
+                        path.display()
+                    )
+                })?;
+                let st = OuterState::from_bytes(&bytes).map_err(|why| {
+                    anyhow::anyhow!(
+                        "{}: the grid tomography state cannot be read: {why}; delete it to start the inversion afresh",
+                        path.display()
+                    )
+                })?;
+                resume.outer = Some(st);
+            }
+        }
     }
-    let o = &req.overrides;
     if let Some(m) = o.method {
         s.method = m;
     }
@@ -146,14 +139,72 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
         s.v_max = Some(v);
     }
     if let Some(kind) = o.regulariser {
-        // both stages: the refinement's regulariser shapes the model that is reported
-        s.pinn.regulariser = kind;
-        s.refine.regulariser = kind;
+        match s.method {
+            Method::Grid => s.grid.regulariser = kind,
+            Method::Pinn => {
+                let g = kind.gradient().ok_or_else(|| {
+                    anyhow::anyhow!(
+                        "--regulariser {}: the PINN has no wavelet regulariser (its regularisers act on the gradient of the network's velocity): use smoothness, total-variation or minimum-support, or invert with --method grid",
+                        kind.name().replace('_', "-")
+                    )
+                })?;
+                // both stages: the refinement's regulariser shapes the model reported
+                s.pinn.regulariser = g;
+                s.refine.regulariser = g;
+            }
+        }
+    }
+    if let Some(c) = o.cell {
+        if s.method != Method::Grid {
+            anyhow::bail!(
+                "--cell is the cell of grid tomography (--method grid); the PINN's output and solver grid is cell_m in the settings file"
+            );
+        }
+        s.grid.cell_m = Some(c);
     }
     if let Some(t) = o.threads {
         s.pinn.threads = t;
     }
     Ok((s, resume))
+}
+
+/// Reads the PINN's states from `dir` into `resume`: the training checkpoint (needed)
+/// and the refinement state (if any); the engine settings come from the checkpoint.
+fn resume_pinn(dir: &Path, s: &mut RunSettings, resume: &mut Resume) -> anyhow::Result<()> {
+    let rs_path = dir.join(REFINE_STATE);
+    if rs_path.exists() {
+        let bytes = std::fs::read(&rs_path)
+            .with_context(|| format!("cannot read {}", rs_path.display()))?;
+        let rs = OuterState::from_bytes(&bytes).map_err(|why| {
+            anyhow::anyhow!(
+                "{}: the refinement state cannot be read: {why}; delete it to redo the refinement from the training checkpoint",
+                rs_path.display()
+            )
+        })?;
+        resume.outer = Some(rs);
+    }
+    let cp_path = dir.join(CHECKPOINT);
+    let bytes = std::fs::read(&cp_path).with_context(|| {
+        format!(
+            "cannot read the checkpoint {}: resume from the output folder of an earlier run",
+            cp_path.display()
+        )
+    })?;
+    let cp = Checkpoint::from_bytes(&bytes)
+        .map_err(|e| anyhow::anyhow!("{}: {e}", cp_path.display()))?;
+    // the checkpoint holds the values the run derived from the survey as well;
+    // the settings keep them open as the file does (the run derives the same)
+    let open = s.pinn.clone();
+    s.pinn = serde_json::from_str(cp.settings_json()).with_context(|| {
+        format!(
+            "{}: the checkpoint's settings are unreadable",
+            cp_path.display()
+        )
+    })?;
+    s.pinn.x_unit_m = open.x_unit_m;
+    s.pinn.collocation = open.collocation;
+    resume.checkpoint = Some(cp);
+    Ok(())
 }
 
 /// The folder a run works in until it is complete: `.NAME.running` beside the output
@@ -182,6 +233,10 @@ struct Watch {
     settings_toml: Option<String>,
     error: Option<String>,
     last_chi2: Option<f64>,
+    /// The file a linearised stage's state goes to.
+    outer_state: &'static str,
+    /// What the bar calls a linearised stage.
+    outer_label: &'static str,
 }
 
 impl Watch {
@@ -247,14 +302,20 @@ impl inversion::Observer for Watch {
                 if let Some(b) = &self.bar {
                     b.set_position(l.iteration as u64);
                     b.set_message(format!(
-                        "refine: fast-marching χ² {:.2}  rms {:.2} ms{}",
+                        "{}: fast-marching χ² {:.2}  rms {:.2} ms{}{}",
+                        self.outer_label,
                         l.chi2,
                         l.rms_ms,
+                        if l.weight.is_finite() {
+                            format!("  λ {:.2e}", l.weight)
+                        } else {
+                            String::new()
+                        },
                         if l.accepted { "" } else { "  (step shortened)" }
                     ));
                 }
             }
-            Event::OuterState(st) => self.save(REFINE_STATE, &st.to_bytes()),
+            Event::OuterState(st) => self.save(self.outer_state, &st.to_bytes()),
             Event::Judging => {
                 if let Some(b) = &self.bar {
                     b.finish_and_clear();
@@ -307,6 +368,14 @@ pub fn run(
         settings_toml: Some(settings.to_toml()),
         error: None,
         last_chi2: None,
+        outer_state: match settings.method {
+            Method::Pinn => REFINE_STATE,
+            Method::Grid => GRID_STATE,
+        },
+        outer_label: match settings.method {
+            Method::Pinn => "refine",
+            Method::Grid => "Gauss–Newton",
+        },
     };
     let result = inversion::run(&problem, settings, resume, &mut watch);
     if let Some(b) = &watch.bar {
@@ -358,7 +427,7 @@ pub fn run(
     std::fs::create_dir_all(&work)
         .with_context(|| format!("cannot create the work folder {}", work.display()))?;
     // what an earlier, interrupted attempt left beside this run's states is stale
-    clear_except(&work, &[CHECKPOINT, REFINE_STATE, "settings.toml"], &inv)?;
+    clear_except(&work, &inv)?;
     crate::report::write_run(&work, &problem, &inv, &report)?;
     swap_into_place(&work, out)?;
     Ok(Run {
@@ -368,10 +437,13 @@ pub fn run(
     })
 }
 
-/// After a failed run: keeps the work folder when it holds a checkpoint (and says how
-/// to continue), removes it otherwise.
+/// After a failed run: keeps the work folder when it holds a state to continue from
+/// (and says how to continue), removes it otherwise.
 fn keep_or_remove(work: &Path) -> Option<String> {
-    if work.join(CHECKPOINT).exists() {
+    if [CHECKPOINT, GRID_STATE]
+        .iter()
+        .any(|n| work.join(n).exists())
+    {
         Some(format!(
             "the states computed so far are kept in {}: `--resume` with the output folder continues from them",
             work.display()
@@ -382,21 +454,30 @@ fn keep_or_remove(work: &Path) -> Option<String> {
     }
 }
 
-/// Removes every file of `work` but the named states that this run wrote (a state
-/// this run did not write, e.g. `refine.bin` of an earlier attempt when the refinement
-/// is off now, is stale too).
-fn clear_except(work: &Path, states: &[&str], inv: &Inversion) -> anyhow::Result<()> {
+/// Removes every file of `work` but the settings and the states that this run wrote
+/// (a state this run did not write, e.g. `refine.bin` of an earlier attempt when the
+/// refinement is off now, or a PINN checkpoint under a grid run, is stale).
+fn clear_except(work: &Path, inv: &Inversion) -> anyhow::Result<()> {
     let refined = inv
         .stages
         .iter()
         .any(|s| matches!(s.history, inversion::History::Linearised { .. }));
+    let mut keep: Vec<&str> = vec!["settings.toml"];
+    match inv.method {
+        Method::Pinn => {
+            keep.push(CHECKPOINT);
+            if refined {
+                keep.push(REFINE_STATE);
+            }
+        }
+        Method::Grid => keep.push(GRID_STATE),
+    }
     for entry in
         std::fs::read_dir(work).with_context(|| format!("cannot read {}", work.display()))?
     {
         let entry = entry?;
         let name = entry.file_name().to_string_lossy().into_owned();
-        let keep = states.contains(&name.as_str()) && (name != REFINE_STATE || refined);
-        if !keep {
+        if !keep.contains(&name.as_str()) {
             let path = entry.path();
             let r = if path.is_dir() {
                 std::fs::remove_dir_all(&path)

@@ -307,6 +307,8 @@ impl InnerProblem for Stage<'_> {
                 params,
                 predicted_chi2,
                 note: None,
+                weight: self.settings.reg_weight,
+                failed: false,
             }),
             // the line search may give up near the f32 rounding floor: the best point
             // evaluated is kept and the stop is reported, not hidden
@@ -316,6 +318,8 @@ impl InnerProblem for Stage<'_> {
                 note: Some(format!(
                     "L-BFGS stopped early ({e}); its best point was kept"
                 )),
+                weight: self.settings.reg_weight,
+                failed: false,
             }),
             Err(e) => Err(format!("L-BFGS found no finite objective: {e}")),
         }

@@ -43,10 +43,25 @@ pub fn html_report(r: &InvertReport) -> String {
             format!("{:.3} ms, {:.3}", o.misfit.rms_ms, o.misfit.chi2),
         );
     }
+    let mut steps_table = String::new();
     match &r.detail {
         MethodDetail::Pinn(p) => {
             t += &row("eikonal residual RMS", format!("{:.4}", p.eikonal_rms));
             t += &row("training steps, stop", format!("{} ({})", p.steps, p.stop));
+        }
+        MethodDetail::Grid(g) => {
+            t += &row(
+                "cells (unknowns) / reached by no ray (keep the starting model)",
+                format!("{} of {} m / {}", g.cells, g.cell_m, g.unconstrained),
+            );
+            t += &row(
+                "time: fast marching / rays / linear solves (LSQR)",
+                format!(
+                    "{:.2} s / {:.2} s / {:.2} s over {} forward solves",
+                    g.seconds_fmm, g.seconds_rays, g.seconds_lsqr, g.forward.solves
+                ),
+            );
+            steps_table = grid_steps(r, g);
         }
     }
     if let Some(f) = &r.refinement {
@@ -124,18 +139,70 @@ pub fn html_report(r: &InvertReport) -> String {
 <h2>Velocity section</h2><img src=\"velocity.png\" alt=\"velocity section\">\
 <p>Depth to {:.0} m/s where the rays reach it: <code>interface-depth.csv</code>.</p>\
 <h2>Travel times</h2><img src=\"traveltimes.png\" alt=\"travel-time curves\">\
-<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">{}{}\
-<p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, checkpoint.bin, refine.bin.</p></body></html>\n",
+<h2>Ray coverage</h2><img src=\"coverage.png\" alt=\"ray coverage\">\
+<p>The derivative weight sum of each node (the ray length attributed to it; Toomey &amp; Foulger 1989) is in <code>coverage.csv</code> beside the coverage flag: a guide to where the section is resolved, not a measure of its error.</p>\
+{}{}{}\
+<p>Files: velocity.csv, coverage.csv, fit.csv, interface-depth.csv, report.json, settings.toml, {}.</p></body></html>\n",
         escape(r.caution),
         t,
         list("Warnings", &r.warnings),
         list("Notes", &r.notes),
         r.iso_depth.velocity_mps,
+        match &r.detail {
+            MethodDetail::Pinn(_) =>
+                "<h2>Training</h2><img src=\"loss.png\" alt=\"loss curves\">",
+            MethodDetail::Grid(_) =>
+                "<h2>Gauss–Newton iterations</h2><img src=\"iterations.png\" alt=\"chi-square per iteration\">",
+        },
         if r.refinement.is_some() {
             "<h2>Refinement</h2><img src=\"refinement.png\" alt=\"refinement chi-square\">"
         } else {
             ""
         },
-        derived
+        steps_table + &derived,
+        match &r.detail {
+            MethodDetail::Pinn(_) => "checkpoint.bin, refine.bin (the states a resumed run continues from)",
+            MethodDetail::Grid(_) => "grid.bin (the state a resumed run continues from)",
+        }
     )
+}
+
+/// The table of grid tomography's steps: every weight tried, the χ² of the model it
+/// proposed, and what LSQR did.
+fn grid_steps(r: &InvertReport, g: &crate::inversion::GridDetail) -> String {
+    let Some(iterations) = r.stages.iter().find_map(|s| match &s.history {
+        crate::inversion::History::Linearised { iterations, .. } => Some(iterations),
+        crate::inversion::History::Training { .. } => None,
+    }) else {
+        return String::new();
+    };
+    let mut out = format!(
+        "<h2>Regularisation weight</h2><p>{}; the χ² of each model is the fast-marching one on the inversion grid. A step whose χ² did not fall was halved (share of the step below).</p><table><tr><th>iteration</th><th>weight λ</th><th>step</th><th>χ²</th><th>RMS (ms)</th><th>regulariser</th><th>kept as best</th></tr>\n",
+        if g.weight_chosen {
+            "The weight was chosen by the run: it starts smooth and falls after every step while χ² is above the target (the discrepancy principle)"
+        } else {
+            "The weight was given in the settings"
+        }
+    );
+    for h in iterations {
+        out += &format!(
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{:.3}</td><td>{:.3}</td><td>{:.4}</td><td>{}</td></tr>\n",
+            h.iteration,
+            if h.weight.is_finite() { format!("{:.3e}", h.weight) } else { "— (start)".into() },
+            if h.iteration == 0 { "—".into() } else { format!("{:.3}", h.step) },
+            h.chi2,
+            h.rms_ms,
+            h.regulariser,
+            if h.accepted { "yes" } else { "no" }
+        );
+    }
+    out += "</table><p>LSQR per step: ";
+    out += &g
+        .steps
+        .iter()
+        .map(|s| format!("{} iterations ({:?})", s.lsqr_iterations, s.lsqr_stop))
+        .collect::<Vec<_>>()
+        .join("; ");
+    out += ".</p>";
+    out
 }

@@ -140,22 +140,27 @@ impl InvertReport {
         inv: &Inversion,
         run_seconds: f64,
     ) -> InvertReport {
-        let refinement = inv.stages.iter().find_map(|s| match &s.history {
-            History::Linearised {
-                iterations,
-                kept,
-                stop,
-                resumed_from,
-            } => Some(RefineSummary {
-                iterations: iterations.len().saturating_sub(1),
-                kept: *kept,
-                pinn_chi2: iterations.first().map_or(f64::NAN, |h| h.chi2),
-                refined_chi2: iterations.get(*kept).map_or(f64::NAN, |h| h.chi2),
-                stop: *stop,
-                resumed_from: *resumed_from,
-            }),
-            History::Training { .. } => None,
-        });
+        let pinn = matches!(inv.method, crate::settings::Method::Pinn);
+        let refinement = inv
+            .stages
+            .iter()
+            .filter(|_| pinn)
+            .find_map(|s| match &s.history {
+                History::Linearised {
+                    iterations,
+                    kept,
+                    stop,
+                    resumed_from,
+                } => Some(RefineSummary {
+                    iterations: iterations.len().saturating_sub(1),
+                    kept: *kept,
+                    pinn_chi2: iterations.first().map_or(f64::NAN, |h| h.chi2),
+                    refined_chi2: iterations.get(*kept).map_or(f64::NAN, |h| h.chi2),
+                    stop: *stop,
+                    resumed_from: *resumed_from,
+                }),
+                History::Training { .. } => None,
+            });
         InvertReport {
             tool: format!("slowfield {}", env!("CARGO_PKG_VERSION")),
             picks: picks.to_string(),
@@ -216,6 +221,38 @@ impl InvertReport {
                 "{} steps ({}), eikonal residual RMS {:.4}; ",
                 p.steps, p.stop, p.eikonal_rms
             ),
+            MethodDetail::Grid(g) => {
+                let course = self.stages.iter().find_map(|s| match &s.history {
+                    History::Linearised {
+                        iterations,
+                        kept,
+                        stop,
+                        ..
+                    } => Some((iterations, *kept, *stop)),
+                    History::Training { .. } => None,
+                });
+                let course =
+                    course.map_or(String::new(), |(it, kept, stop)| {
+                        format!(
+                        "Gauss–Newton: chi2 {:.3} (start) -> {:.3} in {} steps ({:?}), weight {}; ",
+                        it.first().map_or(f64::NAN, |h| h.chi2),
+                        it.get(kept).map_or(f64::NAN, |h| h.chi2),
+                        it.len().saturating_sub(1),
+                        stop,
+                        match it.get(kept).map(|h| h.weight) {
+                            Some(w) if w.is_finite() => format!(
+                                "{w:.3e}{}",
+                                if g.weight_chosen { " (chosen: χ² ≈ target)" } else { " (given)" }
+                            ),
+                            _ => "none (start kept)".into(),
+                        }
+                    )
+                    });
+                format!(
+                    "{} cells of {} m, {} unconstrained; {course}fast marching {:.1} s, rays {:.1} s, LSQR {:.1} s; ",
+                    g.cells, g.cell_m, g.unconstrained, g.seconds_fmm, g.seconds_rays, g.seconds_lsqr
+                )
+            }
         };
         let j = &self.judge;
         let value = |name: &str| self.derived.iter().find(|c| c.setting == name);
@@ -267,7 +304,10 @@ pub fn write_run(
             .with_context(|| format!("cannot write {}", out.join(name).display()))
     };
     w("velocity.csv", model.to_csv().as_bytes())?;
-    w("coverage.csv", coverage_csv(model, covered).as_bytes())?;
+    w(
+        "coverage.csv",
+        coverage_csv(model, &inv.coverage).as_bytes(),
+    )?;
     w("fit.csv", &fit_csv(problem, inv)?)?;
     let mut iface = format!(
         "x,depth_m\n# depth below ground of {} m/s, covered columns only\n",
@@ -358,9 +398,19 @@ pub fn write_run(
                             .collect(),
                     ),
                 ];
+                let (stem, title) = match inv.method {
+                    crate::settings::Method::Pinn => (
+                        "refinement",
+                        "Refinement against fast marching: χ² per outer iteration",
+                    ),
+                    crate::settings::Method::Grid => (
+                        "iterations",
+                        "Grid tomography: χ² per Gauss–Newton iteration",
+                    ),
+                };
                 figures::loss_curves(
-                    &out.join("refinement"),
-                    "Refinement against fast marching: χ² per outer iteration",
+                    &out.join(stem),
+                    title,
                     (
                         "outer iteration (one fast-marching solve of every shot)",
                         "χ²",
@@ -370,6 +420,24 @@ pub fn write_run(
             }
         }
     }
+    figures::ray_coverage(
+        &out.join("coverage"),
+        &figures::CoverageFigure {
+            title: format!(
+                "Ray coverage of the final model ({}): derivative weight sum per node",
+                report.label
+            ),
+            spec: model.spec,
+            dws: &inv.coverage.dws,
+            rays: &inv.coverage.rays,
+            surface: Some(&survey.surface),
+            receivers: &receivers,
+            sources: &sources,
+            footnote: Some(
+                "rays of the fast-marching solution through the final model, from each receiver back to its shot".into(),
+            ),
+        },
+    )?;
     w("report.html", html_report(report).as_bytes())?;
     Ok(())
 }
@@ -403,19 +471,22 @@ pub fn fit_csv(problem: &Problem, inv: &Inversion) -> anyhow::Result<Vec<u8>> {
     Ok(w.into_inner()?)
 }
 
-/// `x,z,covered` (1 where a ray of the fast-marching check passes within a cell).
-pub fn coverage_csv(model: &VelocityGrid, covered: &[bool]) -> String {
+/// `x,z,covered,dws_m`: 1 where a ray of the fast-marching check passes within a
+/// cell, and the derivative weight sum of the node (Toomey & Foulger 1989: the ray
+/// length attributed to it, a resolution proxy).
+pub fn coverage_csv(model: &VelocityGrid, coverage: &Coverage) -> String {
     let s = &model.spec;
-    let mut out = String::from("x,z,covered\n");
+    let mut out = String::from("x,z,covered,dws_m\n");
     for j in 0..s.nz {
         for i in 0..s.nx {
             let k = s.idx(i, j);
             if !model.is_air(k) {
                 out.push_str(&format!(
-                    "{:.4},{:.4},{}\n",
+                    "{:.4},{:.4},{},{:.4}\n",
                     s.x(i),
                     s.z(j),
-                    u8::from(covered[k])
+                    u8::from(coverage.covered[k]),
+                    coverage.dws.get(k).copied().unwrap_or(0.0)
                 ));
             }
         }

@@ -7,8 +7,10 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{read_text, InputError};
 mod engine;
+mod grid;
 
 pub use engine::{Activation, PinnSettings, RefineSettings, Regulariser};
+pub use grid::{GridRegulariser, GridSettings};
 
 /// The inversion method.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -17,6 +19,8 @@ pub enum Method {
     /// Physics-informed neural network, then (unless `[refine] iterations = 0`) its
     /// velocity network refined against fast marching.
     Pinn,
+    /// Grid tomography: Gauss–Newton on cell slownesses with fast marching and rays.
+    Grid,
 }
 
 impl Method {
@@ -24,6 +28,7 @@ impl Method {
     pub fn name(self) -> &'static str {
         match self {
             Method::Pinn => "pinn",
+            Method::Grid => "grid",
         }
     }
 }
@@ -56,6 +61,8 @@ pub struct RunSettings {
     pub pinn: PinnSettings,
     /// The second stage: the velocity network refined against fast marching.
     pub refine: RefineSettings,
+    /// Grid tomography's own settings.
+    pub grid: GridSettings,
 }
 
 impl Default for RunSettings {
@@ -70,6 +77,7 @@ impl Default for RunSettings {
             interface_mps: 1500.0,
             pinn: PinnSettings::default(),
             refine: RefineSettings::default(),
+            grid: GridSettings::default(),
         }
     }
 }
@@ -131,10 +139,17 @@ impl RunSettings {
                 self.sigma_ms
             ));
         }
-        if self.pinn.steps == 0 {
-            return Err("steps = 0: give at least one training step (the default is 3000)".into());
+        match self.method {
+            Method::Pinn => {
+                if self.pinn.steps == 0 {
+                    return Err(
+                        "steps = 0: give at least one training step (the default is 3000)".into(),
+                    );
+                }
+                self.refine.validate()?;
+            }
+            Method::Grid => self.grid.validate()?,
         }
-        self.refine.validate()?;
         if let Some(c) = self.cell_m {
             if !(c.is_finite() && c > 0.0) {
                 return Err(format!("cell_m = {c} must be a positive number of metres"));
