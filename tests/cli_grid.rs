@@ -204,3 +204,61 @@ fn bad_grid_settings_are_refused_before_anything_is_written() {
     assert!(!o.status.success());
     assert!(stderr(&o).contains("bad.toml:2"), "{}", stderr(&o));
 }
+
+/// LSQR stopped by its iteration limit is said, the step is still judged by fast
+/// marching (the best model is kept), and the run finishes; a pick no ground within
+/// the bounds can explain is refused with its line and shot.
+#[test]
+fn lsqr_limits_are_said_and_impossible_picks_named() {
+    let d = tempfile::tempdir().unwrap();
+    synthetic_picks(d.path());
+    std::fs::write(
+        d.path().join("short.toml"),
+        "[grid]\niterations = 2\nlsqr_iterations = 1\n",
+    )
+    .unwrap();
+    let o = run(
+        &[
+            "invert",
+            "picks.csv",
+            "--method",
+            "grid",
+            "--config",
+            "short.toml",
+            "-o",
+            "out",
+        ],
+        d.path(),
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let e = stderr(&o);
+    assert!(e.contains("LSQR stopped without converging"), "{e}");
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.path().join("out/report.json")).unwrap())
+            .unwrap();
+    let steps = report["detail"]["grid"]["steps"].as_array().unwrap();
+    assert!(
+        steps.iter().all(|s| s["lsqr_stop"] == "iteration_limit"),
+        "{steps:?}"
+    );
+    // 60 m in 3 ms is 20 km/s, beyond any v_max the picks give
+    let mut text = std::fs::read_to_string(d.path().join("picks.csv")).unwrap();
+    let lines = text.lines().count();
+    text.push_str("S9,0,0,60,0,3.0,0.5\n");
+    std::fs::write(d.path().join("fast.csv"), text).unwrap();
+    let o = run(
+        &["invert", "fast.csv", "--method", "grid", "-o", "fast"],
+        d.path(),
+    );
+    assert!(!o.status.success());
+    let e = stderr(&o);
+    assert!(
+        e.contains(&format!("fast.csv:{}", lines + 1)) && e.contains("shot 'S9'"),
+        "{e}"
+    );
+    assert!(
+        e.contains("earlier than any ground within the velocity bounds"),
+        "{e}"
+    );
+    assert!(!d.path().join("fast").exists());
+}
