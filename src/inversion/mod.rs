@@ -487,8 +487,12 @@ fn trust(
     let g = judge.inversion_grid.chi2;
     if (j - g).abs() > GRID_DEPENDENCE * g {
         out.push(format!(
-            "the section's fit depends on the grid it is solved on: χ² {j:.2} on the judge's {} m grid against {g:.2} on the inversion's own grid; the model holds features near the cell size (speckle, thin spikes) that no grid resolves reliably — do not read detail at that scale; try a smaller cell_m, or a larger refine.detail_wavelength_m or reg_weight for a smoother section",
-            judge.cell_m
+            "the section's fit depends on the grid it is solved on: χ² {j:.2} on the judge's {} m grid against {g:.2} on the inversion's own grid; the model holds features near the cell size (speckle, thin spikes) that no grid resolves reliably — do not read detail at that scale; try a smaller cell_m, or {} for a smoother section",
+            judge.cell_m,
+            match settings.method {
+                Method::Pinn => "a larger refine.detail_wavelength_m or reg_weight",
+                Method::Grid => "the smoothness regulariser or a larger [grid] reg_weight",
+            }
         ));
     }
     let (lo, hi) = (settings.pinn.v_min, settings.pinn.v_max);
@@ -514,8 +518,12 @@ fn trust(
     }
     if j.is_nan() || j > CHI2_UNTRUSTED {
         out.push(format!(
-            "the section does not explain the picks: the fast-marching check gives χ² {j:.2} (RMS {:.2} ms), above {CHI2_UNTRUSTED}; do not use it before the misfit is understood — check the picks' σ (sigma_ms) and the outliers `slowfield check` lists, then try more training steps or refinement iterations",
-            judge.misfit.rms_ms
+            "the section does not explain the picks: the fast-marching check gives χ² {j:.2} (RMS {:.2} ms), above {CHI2_UNTRUSTED}; do not use it before the misfit is understood — check the picks' σ (sigma_ms) and the outliers `slowfield check` lists, then try {}",
+            judge.misfit.rms_ms,
+            match settings.method {
+                Method::Pinn => "more training steps or refinement iterations",
+                Method::Grid => "more Gauss–Newton iterations ([grid] iterations), or a smaller [grid] reg_weight if one is given",
+            }
         ));
     }
     if let Some(o) = own {

@@ -148,7 +148,10 @@ impl GridSpec {
     }
 }
 
+mod lattice;
 mod read;
+
+pub use lattice::Lattice;
 
 use crate::survey::Surface;
 

@@ -40,7 +40,7 @@ use crate::linearised::{
     self, ForwardModel, InnerProblem, InnerSolution, Linearisation, OuterObserver, OuterOutcome,
     OuterSettings, OuterState,
 };
-use crate::model::GridSpec;
+use crate::model::{GridSpec, Lattice};
 use crate::regularise::Regulariser;
 use crate::settings::RefineSettings;
 use crate::state_bytes::Fnv;
@@ -111,45 +111,14 @@ pub fn refine(
         .filter(|&(i, j)| grid.z(j) <= model.domain.elevation(grid.x(i)) + 1e-9)
         .count();
     let stride = lattice_stride(grid, settings, ground_nodes);
-    let lat_nx = (grid.nx - 1).div_ceil(stride) + 1;
-    let lat_nz = (grid.nz - 1).div_ceil(stride) + 1;
-    let mut lat_slot = vec![usize::MAX; lat_nx * lat_nz];
-    let mut points = Vec::new();
-    let mut lattice_ab = Vec::new();
-    let mut combination: Vec<Vec<(usize, f64)>> = vec![Vec::new(); grid.len()];
-    let mut nodes = Vec::new();
-    let r = stride as f64;
-    for j in 0..grid.nz {
-        for i in 0..grid.nx {
-            let p = [grid.x(i), grid.z(j)];
-            if p[1] > model.domain.elevation(p[0]) + 1e-9 {
-                continue;
-            }
-            let k = grid.idx(i, j);
-            nodes.push(k);
-            let (a, b) = (i / stride, j / stride);
-            let (fa, fb) = ((i % stride) as f64 / r, (j % stride) as f64 / r);
-            for (da, wa) in [(0, 1.0 - fa), (1, fa)] {
-                for (db, wb) in [(0, 1.0 - fb), (1, fb)] {
-                    let w = wa * wb;
-                    if w <= 0.0 {
-                        continue;
-                    }
-                    let (aa, bb) = (a + da, b + db);
-                    let li = bb * lat_nx + aa;
-                    if lat_slot[li] == usize::MAX {
-                        lat_slot[li] = points.len();
-                        points.push([
-                            grid.x0 + (aa * stride) as f64 * grid.dx,
-                            grid.z0 + (bb * stride) as f64 * grid.dz,
-                        ]);
-                        lattice_ab.push((aa, bb));
-                    }
-                    combination[k].push((lat_slot[li], w));
-                }
-            }
-        }
-    }
+    let lat = Lattice::new(grid, &model.domain.surface, stride).map_err(PinnError::Refine)?;
+    let points = &lat.positions;
+    let lattice_ab: Vec<(usize, usize)> = lat
+        .lattice
+        .iter()
+        .map(|&li| (li % lat.nx, li / lat.nx))
+        .collect();
+    let (combination, nodes) = (&lat.combination, &lat.nodes);
     let lattice: Vec<[f64; 2]> = points
         .iter()
         .zip(&lattice_ab)
@@ -160,7 +129,7 @@ pub fn refine(
         .collect();
     let detail = (settings.detail_features > 0).then(|| {
         let d = Detail::new(&model.domain, settings, &model.settings);
-        let b = d.batch(&model.domain, &points);
+        let b = d.batch(&model.domain, points);
         let br = d.batch(&model.domain, &lattice);
         (d, b, br)
     });
@@ -180,8 +149,8 @@ pub fn refine(
     }
     let mut problem = Stage {
         ev: &ev,
-        nodes: &nodes,
-        combination: &combination,
+        nodes,
+        combination,
         n_lattice: points.len(),
         n_grid: grid.len(),
         settings,
