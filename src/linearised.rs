@@ -247,10 +247,10 @@ pub trait InnerProblem {
     }
     /// Takes back what [`InnerProblem::carried`] gave, on resume.
     fn restore(&mut self, _carried: &[f64]) {}
-    /// An iterate became the best so far, reached by `step` (the share of its inner
-    /// solution; 1: the full step; 0: the start), just before the solve from it: a
-    /// method may adapt, e.g. lower its weight only after full steps.
-    fn on_accept(&mut self, _step: f64) {}
+    /// Outer iteration `iteration` became the best so far, reached by `step` (the share
+    /// of its inner solution; 1: the full step; 0: the start), just before the solve
+    /// from it: a method may adapt, e.g. lower its weight only after full steps.
+    fn on_accept(&mut self, _iteration: usize, _step: f64) {}
 }
 
 /// Settings of the outer loop.
@@ -554,7 +554,7 @@ pub fn run(
             if it == settings.iterations {
                 break OuterStop::Iterations;
             }
-            inner.on_accept(st.step);
+            inner.on_accept(it, st.step);
             let next = inner.solve(&st.params, &v, lin)?;
             if let Some(n) = next.note {
                 notes.push((it, n));

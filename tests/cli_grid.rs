@@ -113,15 +113,20 @@ fn grid_method_writes_every_output_and_resumes_to_the_same_result() {
     let solves = g["steps"].as_array().unwrap().len();
     assert!((2..=4).contains(&solves), "{g}");
     assert!(g["cells"].as_u64().unwrap() > 100, "{g}");
-    // every weight tried is in the report, falling (cooling) while χ² is above target
+    // every weight tried is in the report, and the steps did real work: the kept
+    // model's fast-marching χ² is well below the start's (measured 2026-12-03: 1.67 →
+    // 0.68 on the inversion grid, 0.41 of it; bound 0.8, about 2×)
     let w: Vec<f64> = g["steps"]
         .as_array()
         .unwrap()
         .iter()
         .map(|s| s["weight"].as_f64().unwrap())
         .collect();
-    assert!(w.windows(2).all(|p| p[1] <= p[0]), "{w:?}");
-    assert!(w.last() < w.first(), "{w:?}");
+    assert!(w.iter().all(|w| w.is_finite() && *w > 0.0), "{w:?}");
+    let kept = report["stages"][0]["history"]["kept"].as_u64().unwrap() as usize;
+    let chi2 = |k: usize| iterations[k]["chi2"].as_f64().unwrap();
+    eprintln!("χ² {} → {} (iteration {kept})", chi2(0), chi2(kept));
+    assert!(chi2(kept) < 0.8 * chi2(0), "{} → {}", chi2(0), chi2(kept));
     let html = std::fs::read_to_string(d.path().join("full/report.html")).unwrap();
     assert!(html.contains("Regularisation weight") && html.contains("coverage.png"));
     // the coverage table carries the derivative weight sum

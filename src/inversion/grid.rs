@@ -25,8 +25,9 @@ pub struct GridDetail {
     pub cell_m: f64,
     /// Cells (unknowns under the ground).
     pub cells: usize,
-    /// Cells no ray reached at any accepted model: they keep the starting model.
-    pub unconstrained: usize,
+    /// Cells no ray reached at any accepted model: they keep the starting model
+    /// (`None`: the starting model itself was kept).
+    pub unconstrained: Option<usize>,
     /// Whether the weight was chosen by the run (the discrepancy principle) or given.
     pub weight_chosen: bool,
     /// Every linear solve: the weight tried, LSQR's iterations and stop.
@@ -129,16 +130,19 @@ pub(super) fn run(
     }
     if let (Some(st), None) = (&resume.outer, outcome.outer.resumed_from) {
         notes.push(format!(
-            "the saved state (iteration {}) belongs to other picks, cells or [grid] settings; the inversion was redone from the start",
+            "the saved state (iteration {}) belongs to other picks, cells or [grid] settings, or lies beyond the iterations asked for; the inversion was redone from the start",
             st.iteration()
         ));
     }
-    if outcome.unconstrained > 0 {
-        notes.push(format!(
-            "{} of {} cells were reached by no ray and keep the starting model (unconstrained; pale in the figures)",
-            outcome.unconstrained,
+    match outcome.unconstrained {
+        Some(0) => {}
+        Some(n) => notes.push(format!(
+            "{n} of {} cells were reached by no ray and keep the starting model (unconstrained; pale in the figures)",
             cells.len()
-        ));
+        )),
+        None => notes.push(
+            "no Gauss–Newton step lowered the fast-marching χ² (or the starting model met the target already): the section is the starting model".into(),
+        ),
     }
     let timings = forward.timings();
     let seconds_lsqr = outcome.steps.iter().map(|s| s.seconds).sum();

@@ -373,6 +373,12 @@ pub fn run(
     feasible(problem, settings)?;
     let fitted = match settings.method {
         Method::Pinn => pinn::run(problem, settings, resume, observer)?,
+        // the worker threads of the run (`--threads`; the PINN builds its own pool)
+        Method::Grid if settings.pinn.threads > 0 => rayon::ThreadPoolBuilder::new()
+            .num_threads(settings.pinn.threads)
+            .build()
+            .map_err(|e| InversionError::Method(format!("cannot start the worker threads: {e}")))?
+            .install(|| grid::run(problem, settings, resume, observer))?,
         Method::Grid => grid::run(problem, settings, resume, observer)?,
     };
     observer.on(Event::Judging);

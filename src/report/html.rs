@@ -52,7 +52,14 @@ pub fn html_report(r: &InvertReport) -> String {
         MethodDetail::Grid(g) => {
             t += &row(
                 "cells (unknowns) / reached by no ray (keep the starting model)",
-                format!("{} of {} m / {}", g.cells, g.cell_m, g.unconstrained),
+                format!(
+                    "{} of {} m / {}",
+                    g.cells,
+                    g.cell_m,
+                    g.unconstrained
+                        .map_or("— (the starting model was kept)".into(), |n| n
+                            .to_string())
+                ),
             );
             t += &row(
                 "time: fast marching / rays / linear solves (LSQR)",
@@ -179,7 +186,7 @@ fn grid_steps(r: &InvertReport, g: &crate::inversion::GridDetail) -> String {
     let mut out = format!(
         "<h2>Regularisation weight</h2><p>{}; the χ² of each model is the fast-marching one on the inversion grid. A step whose χ² did not fall was halved (share of the step below).</p><table><tr><th>iteration</th><th>weight λ</th><th>step</th><th>χ²</th><th>RMS (ms)</th><th>regulariser</th><th>kept as best</th></tr>\n",
         if g.weight_chosen {
-            "The weight was chosen by the run: it starts smooth and falls after every step while χ² is above the target (the discrepancy principle)"
+            "The weight was chosen by the run: it starts smooth and falls after every full step while χ² is above the target, and holds after a shortened one (the discrepancy principle)"
         } else {
             "The weight was given in the settings"
         }
@@ -196,7 +203,14 @@ fn grid_steps(r: &InvertReport, g: &crate::inversion::GridDetail) -> String {
             if h.accepted { "yes" } else { "no" }
         );
     }
-    out += "</table><p>LSQR per step: ";
+    let resumed = r.stages.iter().find_map(|s| match &s.history {
+        crate::inversion::History::Linearised { resumed_from, .. } => *resumed_from,
+        crate::inversion::History::Training { .. } => None,
+    });
+    out += &match resumed {
+        Some(k) => format!("</table><p>LSQR per step since the resume at iteration {k}: "),
+        None => "</table><p>LSQR per step: ".into(),
+    };
     out += &g
         .steps
         .iter()

@@ -231,9 +231,8 @@ impl InvertReport {
                     } => Some((iterations, *kept, *stop)),
                     History::Training { .. } => None,
                 });
-                let course =
-                    course.map_or(String::new(), |(it, kept, stop)| {
-                        format!(
+                let course = course.map_or(String::new(), |(it, kept, stop)| {
+                    format!(
                         "Gauss–Newton: chi2 {:.3} (start) -> {:.3} in {} steps ({:?}), weight {}; ",
                         it.first().map_or(f64::NAN, |h| h.chi2),
                         it.get(kept).map_or(f64::NAN, |h| h.chi2),
@@ -242,15 +241,25 @@ impl InvertReport {
                         match it.get(kept).map(|h| h.weight) {
                             Some(w) if w.is_finite() => format!(
                                 "{w:.3e}{}",
-                                if g.weight_chosen { " (chosen: χ² ≈ target)" } else { " (given)" }
+                                match (g.weight_chosen, stop) {
+                                    (false, _) => " (given)",
+                                    (true, crate::linearised::OuterStop::TargetReached) =>
+                                        " (chosen: χ² reached the target)",
+                                    (true, _) => " (chosen; the target χ² was not reached)",
+                                }
                             ),
                             _ => "none (start kept)".into(),
                         }
                     )
-                    });
+                });
                 format!(
                     "{} cells of {} m, {} unconstrained; {course}fast marching {:.1} s, rays {:.1} s, LSQR {:.1} s; ",
-                    g.cells, g.cell_m, g.unconstrained, g.seconds_fmm, g.seconds_rays, g.seconds_lsqr
+                    g.cells,
+                    g.cell_m,
+                    g.unconstrained.map_or("start kept: none".into(), |n| n.to_string()),
+                    g.seconds_fmm,
+                    g.seconds_rays,
+                    g.seconds_lsqr
                 )
             }
         };
