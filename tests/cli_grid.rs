@@ -12,6 +12,16 @@ fn stderr(o: &Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()
 }
 
+/// `slowfield invert PICKS --method grid --config CONFIG -o OUT` in `d`.
+fn invert_grid(d: &Path, picks: &str, config: &str, out: &str) -> Output {
+    run(
+        &[
+            "invert", picks, "--method", "grid", "--config", config, "-o", out,
+        ],
+        d,
+    )
+}
+
 /// Synthetic picks of a gradient ground with a slow lens, made by `slowfield forward`.
 fn synthetic_picks(d: &Path) {
     let mut model = String::from("x,z,velocity_mps\n");
@@ -193,19 +203,7 @@ fn bad_grid_settings_are_refused_before_anything_is_written() {
         "[grid]\nregulariser = \"wavelet_d6\"\n",
     )
     .unwrap();
-    let o = run(
-        &[
-            "invert",
-            "picks.csv",
-            "--method",
-            "grid",
-            "--config",
-            "bad.toml",
-            "-o",
-            "out",
-        ],
-        d.path(),
-    );
+    let o = invert_grid(d.path(), "picks.csv", "bad.toml", "out");
     assert!(!o.status.success());
     assert!(stderr(&o).contains("bad.toml:2"), "{}", stderr(&o));
 }
@@ -222,19 +220,7 @@ fn lsqr_limits_are_said_and_impossible_picks_named() {
         "[grid]\niterations = 2\nlsqr_iterations = 1\n",
     )
     .unwrap();
-    let o = run(
-        &[
-            "invert",
-            "picks.csv",
-            "--method",
-            "grid",
-            "--config",
-            "short.toml",
-            "-o",
-            "out",
-        ],
-        d.path(),
-    );
+    let o = invert_grid(d.path(), "picks.csv", "short.toml", "out");
     assert!(o.status.success(), "{}", stderr(&o));
     let e = stderr(&o);
     assert!(e.contains("LSQR stopped without converging"), "{e}");

@@ -10,7 +10,7 @@ use slowfield::inversion::{self, Problem, Resume, Silent};
 use slowfield::linearised::{chi2_of, OuterState};
 use slowfield::model::VelocityGrid;
 use slowfield::settings::{GridRegulariser, Method, RunSettings};
-use slowfield::survey::{Pick, Point, Survey};
+use slowfield::survey::Survey;
 use slowfield::tomography::{Bounds, Cells};
 use slowfield::verify::FmmMisfit;
 
@@ -106,25 +106,9 @@ const GRADIENT_REL: f64 = 0.05;
 fn two_layer_survey(v1: f64, v2: f64, h: f64) -> Survey {
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
     let normal = rand_distr::Normal::new(0.0, 5e-4).unwrap();
-    let mut picks = Vec::new();
-    for (k, sx) in [0.0, 12.0, 24.0, 36.0, 48.0, 60.0].iter().enumerate() {
-        for r in 0..31 {
-            let rx = 2.0 * r as f64;
-            if (rx - sx).abs() < 0.01 {
-                continue;
-            }
-            let t = two_layer_time(rx - sx, v1, v2, h) + rng.sample(normal);
-            picks.push(Pick {
-                shot: format!("S{k}"),
-                source: Point::new(*sx, 0.0),
-                receiver: Point::new(rx, 0.0),
-                time: t,
-                sigma: Some(5e-4),
-                line: picks.len() as u64 + 2,
-            });
-        }
-    }
-    Survey::from_picks(picks).unwrap()
+    common::flat_spread(&[0.0, 12.0, 24.0, 36.0, 48.0, 60.0], 31, 2.0, |x| {
+        (x.abs() >= 0.01).then(|| two_layer_time(x, v1, v2, h) + rng.sample(normal))
+    })
 }
 
 /// A two-layer ground inverted with the defaults: the refractor (where the velocity

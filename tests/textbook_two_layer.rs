@@ -2,6 +2,8 @@
 //! (1990), *Applied Geophysics*, 2nd ed., §4.3: intercept time `2h·cos(ic)/v1`,
 //! crossover distance `2h·sqrt((v2+v1)/(v2−v1))`, `sin(ic) = v1/v2`.
 
+mod common;
+
 use approx::assert_abs_diff_eq;
 use slowfield::analytic::{critical_angle, crossover_distance, intercept_time, two_layer_time};
 use slowfield::qc::{check, QcSettings};
@@ -53,22 +55,9 @@ fn quality_control_sees_both_layers() {
     let (v1, v2, h) = (500.0, 1800.0, 12.0);
     let xc = crossover_distance(v1, v2, h);
     assert!(xc > 30.0 && xc < 33.0, "crossover {xc} m");
-    let mut picks = Vec::new();
-    for (k, sx) in [0.0, 47.0, 94.0].iter().enumerate() {
-        for r in 0..48 {
-            let rx = r as f64 * 2.0;
-            let t = two_layer_time(rx - sx, v1, v2, h);
-            picks.push(Pick {
-                shot: format!("S{k}"),
-                source: Point::new(*sx, 0.0),
-                receiver: Point::new(rx, 0.0),
-                time: t,
-                sigma: Some(5e-4),
-                line: picks.len() as u64 + 2,
-            });
-        }
-    }
-    let survey = Survey::from_picks(picks).unwrap();
+    let survey = common::flat_spread(&[0.0, 47.0, 94.0], 48, 2.0, |x| {
+        Some(two_layer_time(x, v1, v2, h))
+    });
     let qc = check(&survey, &QcSettings::default());
     assert_eq!(qc.shots, 3);
     assert_eq!(qc.receivers, 48);

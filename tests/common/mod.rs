@@ -72,20 +72,26 @@ pub fn five_shot_grid() -> GridSpec {
     }
 }
 
-/// A small flat spread: 5 shots (x = 0, 12, 26, 38, 50 m) into 26 receivers every 2 m on
-/// ground at z = 0, σ = 0.5 ms, times zero (fill them from a model).
-pub fn five_shot_spread() -> slowfield::survey::Survey {
+/// A spread on flat ground at z = 0: every shot at `shots` (x, m) into `receivers`
+/// receivers `spacing` m apart from x = 0, each pick's time `time(signed offset)` (s;
+/// `None` leaves the pick out), σ = 0.5 ms, file lines counted from 2.
+pub fn flat_spread(
+    shots: &[f64],
+    receivers: usize,
+    spacing: f64,
+    mut time: impl FnMut(f64) -> Option<f64>,
+) -> slowfield::survey::Survey {
     use slowfield::survey::{Pick, Survey};
     let mut picks = Vec::new();
-    for (k, sx) in [0.0, 12.0, 26.0, 38.0, 50.0].iter().enumerate() {
-        for r in 0..26 {
-            let rx = 2.0 * r as f64;
-            if (rx - sx).abs() > 0.01 {
+    for (k, sx) in shots.iter().enumerate() {
+        for r in 0..receivers {
+            let rx = spacing * r as f64;
+            if let Some(t) = time(rx - sx) {
                 picks.push(Pick {
                     shot: format!("S{k}"),
                     source: Point::new(*sx, 0.0),
                     receiver: Point::new(rx, 0.0),
-                    time: 0.0,
+                    time: t,
                     sigma: Some(5e-4),
                     line: picks.len() as u64 + 2,
                 });
@@ -93,6 +99,14 @@ pub fn five_shot_spread() -> slowfield::survey::Survey {
         }
     }
     Survey::from_picks(picks).unwrap()
+}
+
+/// A small flat spread: 5 shots (x = 0, 12, 26, 38, 50 m) into 26 receivers every 2 m on
+/// ground at z = 0, σ = 0.5 ms, times zero (fill them from a model).
+pub fn five_shot_spread() -> slowfield::survey::Survey {
+    flat_spread(&[0.0, 12.0, 26.0, 38.0, 50.0], 26, 2.0, |x| {
+        (x.abs() > 0.01).then_some(0.0)
+    })
 }
 
 /// `geometry`'s picks with times by fast marching through `truth` on a 0.25 m grid plus
