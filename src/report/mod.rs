@@ -433,7 +433,7 @@ pub fn write_run(
         &out.join("coverage"),
         &figures::CoverageFigure {
             title: format!(
-                "Ray coverage of the final model ({}): derivative weight sum per node",
+                "Ray coverage of the final model ({})",
                 report.label
             ),
             spec: model.spec,
