@@ -285,3 +285,24 @@ fn bad_settings_and_impossible_picks_are_explained() {
     let e = train(&picks, &bad_domain, &start, &small(5, 1), None, &mut Silent).unwrap_err();
     assert!(matches!(e, PinnError::Domain(_)), "{e}");
 }
+
+/// A training that stopped early (no improvement for `patience` evaluations) and is
+/// resumed from its last checkpoint, as `compare` does to refine the PINN it judged
+/// alone, trains no further: same steps, same stop, the same network bit for bit.
+/// Before the stop was recorded the resumed run trained on for another evaluation
+/// interval and came out different.
+#[test]
+fn resuming_an_early_stopped_training_does_not_train_on() {
+    let (picks, domain, start) = survey();
+    let mut settings = small(400, 1);
+    settings.patience = 2;
+    let mut keep = Keep::default();
+    let first = train(&picks, &domain, &start, &settings, None, &mut keep).unwrap();
+    assert_eq!(first.stop, slowfield::pinn::StopReason::NoImprovement);
+    assert!(first.steps < 400, "stopped at {}", first.steps);
+    let last = keep.cps.pop().unwrap();
+    let cp = Checkpoint::from_bytes(&last.to_bytes()).unwrap();
+    let again = train(&picks, &domain, &start, &settings, Some(cp), &mut Silent).unwrap();
+    assert_eq!((again.steps, again.stop), (first.steps, first.stop));
+    assert_eq!(fingerprint_of(&first), fingerprint_of(&again));
+}

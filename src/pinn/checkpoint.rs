@@ -4,7 +4,7 @@
 //! the order of [`Checkpoint::to_bytes`]. Floats are stored as their bit patterns, so
 //! a resumed run continues bit for bit.
 
-use super::{Domain, Pick, PinnError, PinnSettings, StartModel, StepLog};
+use super::{Domain, Pick, PinnError, PinnSettings, StartModel, StepLog, StopReason};
 use crate::state_bytes::{put_f64, put_u32, put_u64, Fnv, Reader};
 
 /// Mutable training state; everything a checkpoint must hold.
@@ -20,12 +20,16 @@ pub(crate) struct State {
     pub since_best: usize,
     pub best_params: Vec<f32>,
     pub history: Vec<StepLog>,
+    /// Why the training stopped before its last step (target reached, no
+    /// improvement), when it did: a run resumed from this state trains no further.
+    pub stopped: Option<StopReason>,
 }
 
 const MAGIC: &[u8; 8] = b"SFPINNCK";
 /// 2: the velocity bounds left the settings text (set by the run) and joined the
-/// fingerprint on their own.
-const VERSION: u32 = 2;
+/// fingerprint on their own. 3: an early stop is recorded, so that resuming a finished
+/// training (e.g. to add the refinement) does not train on past it.
+const VERSION: u32 = 3;
 
 /// Weights, Adam moments, step, step-size scale, early-stop state, the best weights so
 /// far, the step history, and a fingerprint of the picks, domain, start model and
@@ -69,6 +73,11 @@ impl Checkpoint {
         put_u32(&mut w, s.retries);
         put_f64(&mut w, s.best_obj);
         put_u64(&mut w, s.since_best as u64);
+        w.push(match s.stopped {
+            None | Some(StopReason::MaxSteps) => 0,
+            Some(StopReason::TargetReached) => 1,
+            Some(StopReason::NoImprovement) => 2,
+        });
         for v in [&s.params, &s.m, &s.v, &s.best_params] {
             put_u64(&mut w, v.len() as u64);
             for x in v.iter() {
@@ -118,6 +127,12 @@ impl Checkpoint {
         let retries = r.u32()?;
         let best_obj = r.f64()?;
         let since_best = r.u64()? as usize;
+        let stopped = match r.take(1)?[0] {
+            0 => None,
+            1 => Some(StopReason::TargetReached),
+            2 => Some(StopReason::NoImprovement),
+            _ => return Err("bad stop reason".into()),
+        };
         let mut vecs = Vec::new();
         for _ in 0..4 {
             let n = r.len(4)?;
@@ -181,6 +196,7 @@ impl Checkpoint {
                 since_best,
                 best_params,
                 history,
+                stopped,
             },
             fingerprint,
             settings_json,

@@ -92,6 +92,7 @@ fn run(
                 best_obj: f64::INFINITY,
                 since_best: 0,
                 history: Vec::new(),
+                stopped: None,
             }
         }
     };
@@ -118,8 +119,9 @@ fn run(
     };
     let ad = Device::flex().autodiff();
     let mut last_good = state.clone();
-    let mut stop = StopReason::MaxSteps;
-    while state.step < settings.steps {
+    // a finished training resumed (to refine it, or to judge it again) stays finished
+    let mut stop = state.stopped.unwrap_or(StopReason::MaxSteps);
+    while state.step < settings.steps && state.stopped.is_none() {
         match train_step(&ctx, &mut state, &ad)? {
             Some(log) => {
                 let mut log = log;
@@ -149,6 +151,7 @@ fn run(
                 state.history.push(log.clone());
                 observer.on_step(&log);
                 if stop != StopReason::MaxSteps {
+                    state.stopped = Some(stop);
                     break;
                 }
                 if settings.checkpoint_every > 0

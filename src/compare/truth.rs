@@ -1,5 +1,5 @@
-//! Comparing a model with a known truth (synthetic surveys, the demo): velocity error
-//! in the ray-covered zone and the depth error of a chosen velocity.
+//! A model against a known truth (synthetic surveys, the demo): velocity error in the
+//! ray-covered zone and the depth error of a chosen velocity.
 
 use serde::Serialize;
 
