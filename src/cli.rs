@@ -6,7 +6,9 @@ use std::process::ExitCode;
 
 use clap::{Args, Parser, Subcommand};
 
-use crate::jobs::{self, CheckRequest, DemoRequest, ForwardRequest, InvertRequest, Overrides};
+use crate::jobs::{
+    self, CheckRequest, CompareRequest, DemoRequest, ForwardRequest, InvertRequest, Overrides,
+};
 use crate::settings::{self, GridRegulariser};
 
 /// Seismic first-arrival picks to a velocity section of the shallow ground.
@@ -27,6 +29,8 @@ pub enum Command {
     Forward(ForwardArgs),
     /// Invert picks for a velocity section (PINN refined against fast marching, or grid tomography), checked by fast marching.
     Invert(InvertArgs),
+    /// Several methods on the same picks (or finished `invert` folders), judged by one fast-marching check, in one table.
+    Compare(CompareArgs),
     /// Run the whole job on the shipped demo picks.
     Demo(DemoArgs),
 }
@@ -169,6 +173,50 @@ pub struct InvertArgs {
     pub resume: Option<PathBuf>,
 }
 
+/// Arguments of `compare`.
+#[derive(Debug, Args)]
+pub struct CompareArgs {
+    /// Picks file (CSV: shot,source_x,source_z,receiver_x,receiver_z,time_ms[,sigma_ms]).
+    pub picks: PathBuf,
+    /// Output folder (comparison.csv, comparison.html, figures, one folder per method).
+    #[arg(short, long)]
+    pub output: PathBuf,
+    /// Methods to run, comma-separated: pinn, pinn-refined, grid-smoothness,
+    /// grid-total-variation, grid-minimum-support, grid-wavelet-haar, grid-wavelet-d4
+    /// (default: pinn,pinn-refined,grid-smoothness).
+    #[arg(long, value_name = "LIST")]
+    pub methods: Option<String>,
+    /// Judge the models of these finished `invert` output folders (made from PICKS)
+    /// instead of running methods.
+    #[arg(long, value_name = "DIR", num_args = 1..)]
+    pub from: Vec<PathBuf>,
+    /// True model (CSV: x,z,velocity_mps), for synthetic picks: adds the model errors.
+    #[arg(long, value_name = "MODEL.csv")]
+    pub truth: Option<PathBuf>,
+    /// Velocity whose depth is compared with the truth's, m/s (default: the settings'
+    /// interface_mps, 1500).
+    #[arg(long, value_name = "MPS")]
+    pub iso_velocity: Option<f64>,
+    /// Settings file shared by every method (TOML, as for `invert`).
+    #[arg(long, value_name = "RUN.toml")]
+    pub config: Option<PathBuf>,
+    /// Ground-surface file (CSV: x,z); by default the surface runs through the stations.
+    #[arg(long)]
+    pub surface: Option<PathBuf>,
+    /// PINN training steps at most.
+    #[arg(long)]
+    pub steps: Option<usize>,
+    /// Seed of every random choice.
+    #[arg(long)]
+    pub seed: Option<u64>,
+    /// Uncertainty of picks without their own sigma, ms.
+    #[arg(long, value_name = "MS")]
+    pub sigma_ms: Option<f64>,
+    /// Worker threads (results do not depend on it).
+    #[arg(long)]
+    pub threads: Option<usize>,
+}
+
 /// Arguments of `demo`.
 #[derive(Debug, Args)]
 pub struct DemoArgs {
@@ -230,6 +278,23 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     RegFlag::WaveletD4 => GridRegulariser::WaveletD4,
                 }),
                 threads: a.threads,
+            },
+        }),
+        Command::Compare(a) => jobs::compare(&CompareRequest {
+            picks: a.picks,
+            output: a.output,
+            from: a.from,
+            truth: a.truth,
+            methods: a.methods,
+            iso_velocity: a.iso_velocity,
+            surface: a.surface,
+            config: a.config,
+            overrides: Overrides {
+                steps: a.steps,
+                seed: a.seed,
+                sigma_ms: a.sigma_ms,
+                threads: a.threads,
+                ..Overrides::default()
             },
         }),
         Command::Demo(a) => jobs::demo(&DemoRequest {

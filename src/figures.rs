@@ -951,3 +951,6 @@ pub fn loss_curves(
         Ok(())
     })
 }
+
+mod comparison;
+pub use comparison::{fits_overlay, side_by_side, FitPicks, FitSeries, ModelPanel, SideBySide};

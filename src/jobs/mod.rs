@@ -6,7 +6,9 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 
+pub mod compare;
 pub mod invert;
+pub use compare::{compare, CompareRequest};
 pub use invert::{invert, InvertRequest, Overrides};
 
 use crate::inversion;

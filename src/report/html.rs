@@ -3,7 +3,7 @@
 use super::InvertReport;
 use crate::inversion::MethodDetail;
 
-fn escape(s: &str) -> String {
+pub(crate) fn escape(s: &str) -> String {
     s.replace('&', "&amp;")
         .replace('<', "&lt;")
         .replace('>', "&gt;")

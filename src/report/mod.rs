@@ -2,7 +2,8 @@
 //! plain HTML page), the model, fit and coverage tables, the depth to a chosen velocity,
 //! and the figures. Built from an [`Inversion`] and its [`Problem`]; no solver here.
 
-mod html;
+pub mod comparison;
+pub(crate) mod html;
 
 use std::path::Path;
 
