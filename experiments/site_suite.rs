@@ -302,6 +302,40 @@ fn synthetic_survey(c: &Case, seed: u64) -> (Survey, VelocityGrid) {
     (survey, truth)
 }
 
+/// Writes a case's picks (`picks.csv`, σ per pick) and its true model
+/// (`true-model.csv`) into `dir`: the synthetic picks of the suite's own runs (seed 7),
+/// the demo's shipped files for the demo.
+fn export_case(c: &Case, dir: &Path) -> anyhow::Result<()> {
+    std::fs::create_dir_all(dir)?;
+    let (survey, truth) = match &c.picks_file {
+        Some(p) => {
+            let survey = slowfield::survey::read_picks(p).map_err(|e| anyhow::anyhow!("{e}"))?;
+            let truth = true_grid(c, &survey, DATA_CELL);
+            (survey, truth)
+        }
+        None => synthetic_survey(c, 7),
+    };
+    let times: Vec<f64> = survey.picks.iter().map(|p| p.time).collect();
+    let sigma: Vec<f64> = survey
+        .picks
+        .iter()
+        .map(|p| p.sigma.unwrap_or(SIGMA))
+        .collect();
+    std::fs::write(
+        dir.join("picks.csv"),
+        slowfield::jobs::picks_csv(&survey, &times, Some(&sigma), false)?,
+    )?;
+    // the grid the picks were made on (the judge samples it onto its own)
+    std::fs::write(dir.join("true-model.csv"), truth.to_csv())?;
+    eprintln!(
+        "{}: {} picks, true model → {}",
+        c.name,
+        times.len(),
+        dir.display()
+    );
+    Ok(())
+}
+
 /// The true model of a synthetic case on a grid of `cell` over the survey, air above
 /// the survey's surface.
 fn true_grid(c: &Case, survey: &Survey, cell: f64) -> VelocityGrid {
@@ -584,6 +618,26 @@ fn main() -> anyhow::Result<()> {
         let folder = format!("{}-{}", c.name, method.replace(':', "-"));
         let row = run_case(&c, &settings, &root.join(folder))?;
         println!("{}", serde_json::to_string(&row)?);
+        return Ok(());
+    }
+    // --export DIR [case …]: each case's picks and true model as files, for
+    // `slowfield compare` (experiments/compare_sites.sh)
+    if args.first().map(String::as_str) == Some("--export") {
+        let dir = PathBuf::from(
+            args.get(1)
+                .ok_or_else(|| anyhow::anyhow!("--export needs a folder"))?,
+        );
+        let names: Vec<&str> = args[2..].iter().map(String::as_str).collect();
+        for c in cases() {
+            let wanted = if names.is_empty() {
+                DEFAULT_CASES.contains(&c.name)
+            } else {
+                names.contains(&c.name)
+            };
+            if wanted {
+                export_case(&c, &dir.join(c.name))?;
+            }
+        }
         return Ok(());
     }
     let all = cases();
