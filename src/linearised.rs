@@ -193,10 +193,11 @@ impl Linearisation {
     }
 
     /// The same linearisation in other unknowns (see [`Jacobian::through`]).
-    pub fn through(self, combination: &[Vec<(usize, f64)>], n_cols: usize) -> Linearisation {
+    pub fn through(&self, combination: &[Vec<(usize, f64)>], n_cols: usize) -> Linearisation {
         Linearisation {
             jacobian: self.jacobian.through(combination, n_cols),
-            ..self
+            residual_s: self.residual_s.clone(),
+            sigma_s: self.sigma_s.clone(),
         }
     }
 
@@ -238,7 +239,8 @@ pub trait InnerProblem {
     fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String>;
     /// Minimises the method's objective linearised by `lin` at `p` (whose velocity is
     /// `v`).
-    fn solve(&mut self, p: &[f64], v: &[f64], lin: Linearisation) -> Result<InnerSolution, String>;
+    fn solve(&mut self, p: &[f64], v: &[f64], lin: &Linearisation)
+        -> Result<InnerSolution, String>;
     /// What the method carries from one solve to the next (e.g. a cooling
     /// regularisation weight), saved with the loop's state so that a resumed loop
     /// goes on exactly; empty when nothing is carried.
@@ -251,6 +253,15 @@ pub trait InnerProblem {
     /// of its inner solution; 1: the full step; 0: the start), just before the solve
     /// from it: a method may adapt, e.g. lower its weight only after full steps.
     fn on_accept(&mut self, _iteration: usize, _step: f64) {}
+    /// Every shortening of a step failed: may the method propose a more cautious one
+    /// from the best iterate (e.g. a shorter inner solve)? `true` makes the loop solve
+    /// again from there instead of stopping; the default never does. A step along the
+    /// straight line between two parameter vectors is a sound line search only where the
+    /// velocity is linear in the parameters (grid cells); a network's long inner solve
+    /// can end where the chord from the start rises in χ² however short it is cut.
+    fn shrink(&mut self) -> bool {
+        false
+    }
 }
 
 /// Settings of the outer loop.
@@ -520,6 +531,10 @@ pub fn run(
         inner.restore(&st.carried);
     }
     let mut notes = Vec::new();
+    // the linearisation at the best iterate and its velocity, for a solve again from
+    // there when every shortening fails (after a resume it is computed afresh: the
+    // same forward solve gives the same linearisation)
+    let mut best_lin: Option<(Linearisation, Vec<f64>)> = None;
     let stop = loop {
         st.carried = inner.carried();
         observer.on_state(&st);
@@ -555,7 +570,8 @@ pub fn run(
                 break OuterStop::Iterations;
             }
             inner.on_accept(it, st.step);
-            let next = inner.solve(&st.params, &v, lin)?;
+            let next = inner.solve(&st.params, &v, &lin)?;
+            best_lin = Some((lin, v));
             if let Some(n) = next.note {
                 notes.push((it, n));
             }
@@ -573,7 +589,30 @@ pub fn run(
             }
             let half = st.step * 0.5;
             if half < 0.5f64.powi(settings.max_shortenings as i32) - 1e-12 {
-                break OuterStop::Stalled;
+                if !inner.shrink() {
+                    break OuterStop::Stalled;
+                }
+                let (lin_b, v_b) = match best_lin.take() {
+                    Some(b) => b,
+                    None => {
+                        let (v, _) = inner.velocity(&st.best_params)?;
+                        (forward.linearise(&v)?, v)
+                    }
+                };
+                let next = inner.solve(&st.best_params, &v_b, &lin_b)?;
+                best_lin = Some((lin_b, v_b));
+                if let Some(n) = next.note {
+                    notes.push((it, n));
+                }
+                if next.failed {
+                    break OuterStop::InnerFailed;
+                }
+                st.weight = next.weight;
+                st.full = next.params.clone();
+                st.params = next.params;
+                st.step = 1.0;
+                st.predicted = next.predicted_chi2;
+                continue;
             }
             st.params = st
                 .best_params

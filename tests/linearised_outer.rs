@@ -39,7 +39,7 @@ impl InnerProblem for Overshoot {
         &mut self,
         p: &[f64],
         _v: &[f64],
-        lin: Linearisation,
+        lin: &Linearisation,
     ) -> Result<InnerSolution, String> {
         let ds: Vec<f64> = (0..2)
             .map(|i| {
@@ -205,7 +205,7 @@ fn inner_failures_and_early_stops_are_reported() {
             &mut self,
             p: &[f64],
             _v: &[f64],
-            _lin: Linearisation,
+            _lin: &Linearisation,
         ) -> Result<InnerSolution, String> {
             if self.0 {
                 Err("the objective could not be evaluated".into())
@@ -248,4 +248,110 @@ fn inner_failures_and_early_stops_are_reported() {
     .unwrap();
     assert_eq!(out.notes.len(), 2, "{:?}", out.notes);
     assert_eq!(out.notes[0], (0, "line search gave up".to_string()));
+}
+
+/// An inner solve that points the wrong way (a long solve in a nonlinear
+/// parametrisation can end where every point of the chord from the start raises χ²)
+/// until the method is asked to be more cautious: `shrink` makes the loop solve again
+/// from the best iterate instead of stopping, and the cautious solve is then accepted.
+/// The cautious flag is carried, so a run resumed between the two solves (without the
+/// best iterate's linearisation in memory) ends bit for bit where the whole run does.
+#[test]
+fn a_stalled_step_is_solved_again_more_cautiously() {
+    struct Wrong {
+        cautious: bool,
+        may_shrink: bool,
+    }
+    impl InnerProblem for Wrong {
+        fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String> {
+            Ok((p.iter().map(|s| 1.0 / s).collect(), 0.0))
+        }
+        fn solve(
+            &mut self,
+            p: &[f64],
+            _v: &[f64],
+            lin: &Linearisation,
+        ) -> Result<InnerSolution, String> {
+            let gain = if self.cautious { 1.0 } else { -2.0 };
+            let ds: Vec<f64> = (0..2)
+                .map(|i| {
+                    let (_, w) = lin.jacobian.row(i).next().unwrap();
+                    gain * lin.residual_s[i] / w
+                })
+                .collect();
+            Ok(InnerSolution {
+                params: p.iter().zip(&ds).map(|(a, b)| a + b).collect(),
+                predicted_chi2: f64::NAN,
+                note: None,
+                weight: 0.0,
+                failed: false,
+            })
+        }
+        fn carried(&self) -> Vec<f64> {
+            vec![f64::from(u8::from(self.cautious))]
+        }
+        fn restore(&mut self, c: &[f64]) {
+            self.cautious = c.first() == Some(&1.0);
+        }
+        fn shrink(&mut self) -> bool {
+            if self.may_shrink && !self.cautious {
+                self.cautious = true;
+                true
+            } else {
+                false
+            }
+        }
+    }
+    let settings = OuterSettings {
+        iterations: 10,
+        chi2_target: 1e-6,
+        max_shortenings: 2,
+    };
+    struct Keep(Vec<OuterState>);
+    impl OuterObserver for Keep {
+        fn on_state(&mut self, s: &OuterState) {
+            self.0.push(s.clone());
+        }
+    }
+    let go = |may_shrink: bool, resume: Option<&OuterState>, keep: &mut Keep| {
+        run(
+            &mut Wrong {
+                cautious: false,
+                may_shrink,
+            },
+            &mut Toy,
+            vec![0.6, 1.3],
+            &settings,
+            3,
+            resume,
+            keep,
+        )
+        .unwrap()
+    };
+    // without a cautious retry the loop stops where it started
+    let stuck = go(false, None, &mut Keep(Vec::new()));
+    assert_eq!(stuck.stop, slowfield::linearised::OuterStop::Stalled);
+    assert_eq!(stuck.kept, 0);
+    let mut keep = Keep(Vec::new());
+    let out = go(true, None, &mut keep);
+    let h = &out.history;
+    // the wrong step and its two halvings are rejected, then a full cautious step
+    let steps: Vec<(f64, bool)> = h.iter().map(|l| (l.step, l.accepted)).collect();
+    assert_eq!(
+        steps[..5],
+        [
+            (0.0, true),
+            (1.0, false),
+            (0.5, false),
+            (0.25, false),
+            (1.0, true)
+        ],
+        "{h:?}"
+    );
+    assert!(out.chi2_after() < 1e-3 * out.chi2_before(), "{h:?}");
+    // resumed during the halvings: the best iterate's linearisation is recomputed
+    let resumed = go(true, Some(&keep.0[2]), &mut Keep(Vec::new()));
+    assert_eq!(resumed.resumed_from, Some(2));
+    assert_eq!(resumed.params, out.params);
+    assert_eq!(resumed.history.len(), out.history.len());
 }

@@ -50,8 +50,7 @@ pub const MAX_SHORTENINGS: u32 = 3;
 
 /// Changes whenever the objective, its sampling or the outer loop changes, so a state
 /// written by an older build is not continued by a newer one (part of the fingerprint).
-const REFINE_ALGORITHM: &str =
-    "detail-fourier-v1; regulariser on every other node; outer loop with step halving";
+const REFINE_ALGORITHM: &str = "detail-fourier-v1; regulariser on every other node; outer loop with step halving; a stalled step solved again with a shorter inner solve";
 
 /// The result of [`refine`].
 #[derive(Clone, Debug)]
@@ -154,6 +153,7 @@ pub fn refine(
         n_lattice: points.len(),
         n_grid: grid.len(),
         settings,
+        inner_steps: settings.inner_steps,
     };
     let outer_settings = OuterSettings {
         iterations: settings.iterations,
@@ -236,9 +236,42 @@ struct Stage<'a> {
     n_lattice: usize,
     n_grid: usize,
     settings: &'a RefineSettings,
+    /// L-BFGS iterations of the next inner solve: `settings.inner_steps`, cut by
+    /// [`SHRINK`] each time every shortening of a step failed, doubled back (up to
+    /// the setting) after each full step accepted.
+    inner_steps: usize,
 }
 
+/// Factor by which a stalled refinement cuts its inner solve before solving again.
+pub const SHRINK: usize = 4;
+/// The shortest inner solve the refinement tries.
+pub const MIN_INNER_STEPS: usize = 3;
+
 impl InnerProblem for Stage<'_> {
+    fn carried(&self) -> Vec<f64> {
+        vec![self.inner_steps as f64]
+    }
+
+    fn restore(&mut self, carried: &[f64]) {
+        if let Some(&n) = carried.first() {
+            self.inner_steps = (n as usize).clamp(1, self.settings.inner_steps.max(1));
+        }
+    }
+
+    fn on_accept(&mut self, _iteration: usize, step: f64) {
+        if step >= 1.0 {
+            self.inner_steps = (2 * self.inner_steps).min(self.settings.inner_steps);
+        }
+    }
+
+    fn shrink(&mut self) -> bool {
+        if self.inner_steps <= MIN_INNER_STEPS {
+            return false;
+        }
+        self.inner_steps = (self.inner_steps / SHRINK).max(MIN_INNER_STEPS);
+        true
+    }
+
     fn velocity(&self, p: &[f64]) -> Result<(Vec<f64>, f64), String> {
         let (_, _, _, lattice_v, reg_value) = self.ev.forward(p).map_err(|e| e.to_string())?;
         Ok((self.on_grid(&lattice_v), reg_value))
@@ -248,7 +281,7 @@ impl InnerProblem for Stage<'_> {
         &mut self,
         p: &[f64],
         _v: &[f64],
-        lin: Linearisation,
+        lin: &Linearisation,
     ) -> Result<InnerSolution, String> {
         let (_, _, _, lattice_v, _) = self.ev.forward(p).map_err(|e| e.to_string())?;
         let inner = Inner {
@@ -262,10 +295,7 @@ impl InnerProblem for Stage<'_> {
         };
         let solver = LBFGS::new(MoreThuenteLineSearch::new(), 10);
         let run = Executor::new(&inner, solver)
-            .configure(|st| {
-                st.param(p.to_vec())
-                    .max_iters(self.settings.inner_steps as u64)
-            })
+            .configure(|st| st.param(p.to_vec()).max_iters(self.inner_steps as u64))
             .run();
         if let Some(e) = inner.failure.take() {
             return Err(e);

@@ -335,7 +335,7 @@ impl InnerProblem for Method<'_> {
         &mut self,
         p: &[f64],
         _v: &[f64],
-        lin: Linearisation,
+        lin: &Linearisation,
     ) -> Result<InnerSolution, String> {
         let t0 = Instant::now();
         let iteration = self.iteration;
