@@ -11,16 +11,22 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 out=${1:-target/compare_sites}
 shift || true
-cargo build --release --quiet --example site_suite
-cargo build --release --quiet
-target=${CARGO_TARGET_DIR:-target}
-"$target/release/examples/site_suite" --export "$out/sites" "$@"
+# SLOWFIELD_BIN=DIR: the slowfield and site_suite binaries already built there (so
+# that a build going on beside the run does not change them under it)
+if [ -z "${SLOWFIELD_BIN:-}" ]; then
+  cargo build --release --quiet --example site_suite
+  cargo build --release --quiet
+  target=${CARGO_TARGET_DIR:-target}
+  SLOWFIELD_BIN="$target/release"
+  cp "$target/release/examples/site_suite" "$SLOWFIELD_BIN/site_suite" 2>/dev/null || true
+fi
+"$SLOWFIELD_BIN/site_suite" --export "$out/sites" "$@"
 : > "$out/tables.md"
 for d in "$out"/sites/*/; do
   case=$(basename "$d")
   echo "== $case" >&2
   /usr/bin/time -f "%e s wall, %M kB peak" -o "$out/$case.time" \
-    "$target/release/slowfield" compare "$d/picks.csv" --truth "$d/true-model.csv" \
+    "$SLOWFIELD_BIN/slowfield" compare "$d/picks.csv" --truth "$d/true-model.csv" \
     -o "$out/$case" > "$out/$case.txt"
   { echo "### $case ($(cat "$out/$case.time"))"; echo; echo '```'; cat "$out/$case.txt"; echo '```'; echo; } >> "$out/tables.md"
 done

@@ -82,6 +82,13 @@ pub(super) fn run(
     let s = settings;
     let (picks, domain, start) = engine_inputs(problem, s);
     let mut notes = Vec::new();
+    if let Some(cp) = &resume.checkpoint {
+        notes.push(format!(
+            "the training continued from a checkpoint at step {} of {}: the training time shown is this run's part only",
+            cp.step(),
+            s.pinn.steps
+        ));
+    }
     let t_train = Instant::now();
     observer.on(Event::Stage {
         name: "training the networks",

@@ -142,7 +142,7 @@ fn page(dir: &Path, cmp: &Comparison, picks: &str, reference: &str) -> anyhow::R
     Ok(format!(
         "<!doctype html><html><head><meta charset=\"utf-8\"><title>slowfield comparison</title>\
 <style>body{{font-family:sans-serif;max-width:1500px;margin:1em auto;color:#222}}\
-table{{border-collapse:collapse}}td,th{{padding:.2em .7em;text-align:right;border-bottom:1px solid #ddd}}td.l,th.l{{text-align:left}}\
+table{{border-collapse:collapse}}td,th{{padding:.2em .7em;text-align:right;border-bottom:1px solid #ddd}}td.l,th.l{{text-align:left}}td:first-child{{white-space:nowrap}}\
 .caution{{border:2px solid #b33;padding:.6em 1em;background:#fff4f4}}img{{max-width:100%}}\
 @media print{{h2{{page-break-before:always}}img{{max-width:100%;page-break-inside:avoid}}}}</style></head><body>\
 <h1>Methods compared on the same picks</h1>\
