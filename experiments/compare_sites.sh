@@ -17,8 +17,8 @@ if [ -z "${SLOWFIELD_BIN:-}" ]; then
   cargo build --release --quiet --example site_suite
   cargo build --release --quiet
   target=${CARGO_TARGET_DIR:-target}
-  SLOWFIELD_BIN="$target/release"
-  cp "$target/release/examples/site_suite" "$SLOWFIELD_BIN/site_suite" 2>/dev/null || true
+  SLOWFIELD_BIN=$(mktemp -d)
+  cp "$target/release/slowfield" "$target/release/examples/site_suite" "$SLOWFIELD_BIN/"
 fi
 "$SLOWFIELD_BIN/site_suite" --export "$out/sites" "$@"
 : > "$out/tables.md"

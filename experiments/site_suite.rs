@@ -302,19 +302,24 @@ fn synthetic_survey(c: &Case, seed: u64) -> (Survey, VelocityGrid) {
     (survey, truth)
 }
 
-/// Writes a case's picks (`picks.csv`, σ per pick) and its true model
-/// (`true-model.csv`) into `dir`: the synthetic picks of the suite's own runs (seed 7),
-/// the demo's shipped files for the demo.
-fn export_case(c: &Case, dir: &Path) -> anyhow::Result<()> {
-    std::fs::create_dir_all(dir)?;
-    let (survey, truth) = match &c.picks_file {
+/// A case's picks and true model: the synthetic picks (seed 7), or the demo's files.
+fn case_survey(c: &Case) -> anyhow::Result<(Survey, VelocityGrid)> {
+    Ok(match &c.picks_file {
         Some(p) => {
             let survey = slowfield::survey::read_picks(p).map_err(|e| anyhow::anyhow!("{e}"))?;
             let truth = true_grid(c, &survey, DATA_CELL);
             (survey, truth)
         }
         None => synthetic_survey(c, 7),
-    };
+    })
+}
+
+/// Writes a case's picks (`picks.csv`, σ per pick) and its true model
+/// (`true-model.csv`) into `dir`: the synthetic picks of the suite's own runs (seed 7),
+/// the demo's shipped files for the demo.
+fn export_case(c: &Case, dir: &Path) -> anyhow::Result<()> {
+    std::fs::create_dir_all(dir)?;
+    let (survey, truth) = case_survey(c)?;
     let times: Vec<f64> = survey.picks.iter().map(|p| p.time).collect();
     let sigma: Vec<f64> = survey
         .picks
@@ -388,14 +393,7 @@ impl inversion::Observer for Keep {
 fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row> {
     let t0 = Instant::now();
     // the wall time counts making the synthetic picks too (as in the published tables)
-    let (survey, truth) = match &c.picks_file {
-        Some(p) => {
-            let survey = slowfield::survey::read_picks(p).map_err(|e| anyhow::anyhow!("{e}"))?;
-            let truth = true_grid(c, &survey, DATA_CELL);
-            (survey, truth)
-        }
-        None => synthetic_survey(c, 7),
-    };
+    let (survey, truth) = case_survey(c)?;
     // PINN_RESUME=DIR continues from DIR/<case>/checkpoint.bin of an earlier run with
     // the same PINN settings (to study the refinement stage without retraining)
     let checkpoint = match std::env::var_os("PINN_RESUME") {

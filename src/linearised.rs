@@ -331,6 +331,25 @@ const STATE_MAGIC: &[u8; 8] = b"SFOUTERS";
 const STATE_VERSION: u32 = 4;
 
 impl OuterState {
+    /// Takes an inner solution solved at iteration `it` as the next full step (its
+    /// note kept); `false` when the inner solver failed.
+    fn take(&mut self, next: InnerSolution, it: usize, notes: &mut Vec<(usize, String)>) -> bool {
+        if let Some(n) = next.note {
+            notes.push((it, n));
+        }
+        if next.failed {
+            return false;
+        }
+        self.weight = next.weight;
+        self.full = next.params.clone();
+        self.params = next.params;
+        self.step = 1.0;
+        self.predicted = next.predicted_chi2;
+        true
+    }
+}
+
+impl OuterState {
     /// The outer iteration this state continues with.
     pub fn iteration(&self) -> usize {
         self.iteration
@@ -572,17 +591,9 @@ pub fn run(
             inner.on_accept(it, st.step);
             let next = inner.solve(&st.params, &v, &lin)?;
             best_lin = Some((lin, v));
-            if let Some(n) = next.note {
-                notes.push((it, n));
-            }
-            if next.failed {
+            if !st.take(next, it, &mut notes) {
                 break OuterStop::InnerFailed;
             }
-            st.weight = next.weight;
-            st.full = next.params.clone();
-            st.params = next.params;
-            st.step = 1.0;
-            st.predicted = next.predicted_chi2;
         } else {
             if it == settings.iterations {
                 break OuterStop::Iterations;
@@ -601,17 +612,9 @@ pub fn run(
                 };
                 let next = inner.solve(&st.best_params, &v_b, &lin_b)?;
                 best_lin = Some((lin_b, v_b));
-                if let Some(n) = next.note {
-                    notes.push((it, n));
-                }
-                if next.failed {
+                if !st.take(next, it, &mut notes) {
                     break OuterStop::InnerFailed;
                 }
-                st.weight = next.weight;
-                st.full = next.params.clone();
-                st.params = next.params;
-                st.step = 1.0;
-                st.predicted = next.predicted_chi2;
                 continue;
             }
             st.params = st
