@@ -173,7 +173,6 @@ fn a_known_two_layer_depth_is_found_to_under_a_cell() {
         .filter(|r| r.0 != "truth")
         .map(|r| num(&r.1, "iso_depth_error_m"))
         .fold(f64::INFINITY, f64::min);
-    eprintln!("{}", String::from_utf8_lossy(&o.stdout));
     assert!(best < 0.5, "best depth error {best} m");
     // the truth's own row: no error, a χ² the noise explains
     let t = &rows[0].1;

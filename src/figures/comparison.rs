@@ -6,7 +6,7 @@ use std::path::Path;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-use super::{colour, render, shot_colour, tick, DrawResult, FigureError};
+use super::{colour, colour_bar, render, shot_colour, tick, DrawResult, FigureError};
 use crate::model::GridSpec;
 use crate::survey::{Point, Surface};
 
@@ -138,13 +138,9 @@ pub fn side_by_side(stem: &Path, f: &SideBySide) -> Result<(), FigureError> {
         .max(5.0);
     let dlim = (dlim / super::nice_step(dlim, 4.0)).ceil() * super::nice_step(dlim, 4.0);
     let title = format!("{}  (vertical exaggeration {ve}×)", f.title);
-    let png_draw = |root: DrawingArea<BitMapBackend, Shift>| -> DrawResult {
+    figure!(stem, (WIDTH, height), |root| {
         side_by_side_body(&root, f, (vlo, vhi), dlim, zr, row_h, &title)
-    };
-    let svg_draw = |root: DrawingArea<SVGBackend, Shift>| -> DrawResult {
-        side_by_side_body(&root, f, (vlo, vhi), dlim, zr, row_h, &title)
-    };
-    render(stem, (WIDTH, height), png_draw, svg_draw)
+    })
 }
 
 fn side_by_side_body<DB: DrawingBackend>(
@@ -276,13 +272,7 @@ where
         (&top, vlo, vhi, "velocity (m/s)", true),
         (&bottom, -dlim, dlim, "difference (%)", false),
     ] {
-        let mut cb = ChartBuilder::on(area)
-            .margin_top(70)
-            .margin_bottom(40)
-            .margin_right(95)
-            .y_label_area_size(0)
-            .right_y_label_area_size(50)
-            .build_cartesian_2d(0.0..1.0, lo..hi)?;
+        let mut cb = colour_bar(area, lo..hi)?;
         let n = 100;
         cb.draw_series((0..n).map(|k| {
             let a = lo + (hi - lo) * k as f64 / n as f64;
@@ -381,34 +371,18 @@ pub fn fits_overlay(
         let mut gaps: Vec<f64> = x.windows(2).map(|p| p[1] - p[0]).collect();
         crate::stats::median(&mut gaps).unwrap_or(1.0)
     };
-    render(
-        stem,
-        (w, h),
-        |root: DrawingArea<BitMapBackend, Shift>| {
-            fits_body(
-                &root,
-                title,
-                picks,
-                series,
-                (xlo - pad, xhi + pad),
-                tmax,
-                rlim,
-                spacing,
-            )
-        },
-        |root: DrawingArea<SVGBackend, Shift>| {
-            fits_body(
-                &root,
-                title,
-                picks,
-                series,
-                (xlo - pad, xhi + pad),
-                tmax,
-                rlim,
-                spacing,
-            )
-        },
-    )
+    figure!(stem, (w, h), |root| {
+        fits_body(
+            &root,
+            title,
+            picks,
+            series,
+            (xlo - pad, xhi + pad),
+            tmax,
+            rlim,
+            spacing,
+        )
+    })
 }
 
 #[allow(clippy::too_many_arguments)]

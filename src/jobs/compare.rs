@@ -135,25 +135,8 @@ pub fn compare(req: &CompareRequest) -> anyhow::Result<ExitCode> {
     let cmp = compare::compare(&problem, &entries, truth.as_ref(), iso)
         .map_err(|e| anyhow::anyhow!("{e}"))?;
     write_outputs(&work, &problem, &cmp, req, t0.elapsed().as_secs_f64())?;
-    // clear what an earlier comparison left in the folder, then swap it into place
-    if out.exists() {
-        let old = work.with_file_name(format!(
-            ".{}.old",
-            out.file_name().unwrap_or_default().to_string_lossy()
-        ));
-        if old.exists() {
-            std::fs::remove_dir_all(&old)
-                .with_context(|| format!("cannot remove {}", old.display()))?;
-        }
-        std::fs::rename(out, &old)
-            .with_context(|| format!("cannot move the earlier {} aside", out.display()))?;
-        std::fs::rename(&work, out)
-            .with_context(|| format!("cannot move {} to {}", work.display(), out.display()))?;
-        let _ = std::fs::remove_dir_all(&old);
-    } else {
-        std::fs::rename(&work, out)
-            .with_context(|| format!("cannot move {} to {}", work.display(), out.display()))?;
-    }
+    // the finished folder replaces what an earlier comparison left
+    invert::swap_into_place(&work, out)?;
     print!("{}", compare::table_text(&cmp));
     println!(
         "\nstatistics over the {:.0} % of the section that the rays of every model{} reach; open {}",
@@ -170,35 +153,9 @@ fn base_settings(req: &CompareRequest) -> anyhow::Result<RunSettings> {
         Some(p) => RunSettings::read(p).map_err(|e| anyhow::anyhow!("{e}"))?,
         None => RunSettings::default(),
     };
-    let o = &req.overrides;
-    if let Some(v) = o.steps {
-        s.pinn.steps = v;
-    }
-    if let Some(v) = o.refine {
-        s.refine.iterations = v;
-    }
-    if let Some(v) = o.seed {
-        s.pinn.seed = v;
-    }
-    if let Some(v) = o.sigma_ms {
-        s.sigma_ms = v;
-    }
-    if o.v_min.is_some() {
-        s.v_min = o.v_min;
-    }
-    if o.v_max.is_some() {
-        s.v_max = o.v_max;
-    }
-    if let Some(t) = o.threads {
-        s.pinn.threads = t;
-    }
-    s.validate().map_err(|e| match &req.config {
-        Some(f) => anyhow::anyhow!(
-            "invalid setting: {e} (settings from {} and the command line)",
-            f.display()
-        ),
-        None => anyhow::anyhow!("invalid setting: {e}"),
-    })?;
+    req.overrides.apply_shared(&mut s);
+    s.validate()
+        .map_err(|e| invert::invalid_setting(e, req.config.as_deref()))?;
     Ok(s)
 }
 

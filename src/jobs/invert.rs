@@ -120,24 +120,7 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
     if let Some(d) = o.dim {
         s.pinn.dim = d;
     }
-    if let Some(v) = o.steps {
-        s.pinn.steps = v;
-    }
-    if let Some(v) = o.refine {
-        s.refine.iterations = v;
-    }
-    if let Some(v) = o.seed {
-        s.pinn.seed = v;
-    }
-    if let Some(v) = o.sigma_ms {
-        s.sigma_ms = v;
-    }
-    if let Some(v) = o.v_min {
-        s.v_min = Some(v);
-    }
-    if let Some(v) = o.v_max {
-        s.v_max = Some(v);
-    }
+    o.apply_shared(&mut s);
     if let Some(kind) = o.regulariser {
         match s.method {
             Method::Grid => s.grid.regulariser = kind,
@@ -162,10 +145,47 @@ pub fn settings(req: &InvertRequest) -> anyhow::Result<(RunSettings, Resume)> {
         }
         s.grid.cell_m = Some(c);
     }
-    if let Some(t) = o.threads {
-        s.pinn.threads = t;
-    }
     Ok((s, resume))
+}
+
+impl Overrides {
+    /// Sets the flags that mean the same whatever the method (steps, refinement,
+    /// seed, σ, bounds, threads); the method, dimension, regulariser and cell are the
+    /// caller's, as they depend on the method.
+    pub fn apply_shared(&self, s: &mut RunSettings) {
+        if let Some(v) = self.steps {
+            s.pinn.steps = v;
+        }
+        if let Some(v) = self.refine {
+            s.refine.iterations = v;
+        }
+        if let Some(v) = self.seed {
+            s.pinn.seed = v;
+        }
+        if let Some(v) = self.sigma_ms {
+            s.sigma_ms = v;
+        }
+        if self.v_min.is_some() {
+            s.v_min = self.v_min;
+        }
+        if self.v_max.is_some() {
+            s.v_max = self.v_max;
+        }
+        if let Some(t) = self.threads {
+            s.pinn.threads = t;
+        }
+    }
+}
+
+/// A setting `validate` refused, with the file the settings came from (if any).
+pub fn invalid_setting(e: String, file: Option<&Path>) -> anyhow::Error {
+    match file {
+        Some(f) => anyhow::anyhow!(
+            "invalid setting: {e} (settings from {} and the command line)",
+            f.display()
+        ),
+        None => anyhow::anyhow!("invalid setting: {e}"),
+    }
 }
 
 /// Reads the PINN's states from `dir` into `resume`: the training checkpoint (needed)
@@ -493,7 +513,7 @@ fn clear_except(work: &Path, inv: &Inversion) -> anyhow::Result<()> {
 /// Replaces `out` by the finished `work` folder: `out` is renamed aside, `work` renamed
 /// to `out`, the old one removed. Between the two renames (microseconds) `out` is
 /// missing; its old contents are then still in `.NAME.old`.
-fn swap_into_place(work: &Path, out: &Path) -> anyhow::Result<()> {
+pub(crate) fn swap_into_place(work: &Path, out: &Path) -> anyhow::Result<()> {
     let old = work.with_file_name(
         work.file_name()
             .map(|n| n.to_string_lossy().replace(".running", ".old"))
@@ -541,13 +561,7 @@ pub fn invert(req: &InvertRequest) -> anyhow::Result<ExitCode> {
             .config
             .clone()
             .or_else(|| req.resume.as_ref().map(|d| d.join("settings.toml")));
-        match file {
-            Some(f) => anyhow::anyhow!(
-                "invalid setting: {e} (settings from {} and the command line)",
-                f.display()
-            ),
-            None => anyhow::anyhow!("invalid setting: {e}"),
-        }
+        invalid_setting(e, file.as_deref())
     })?;
     let survey = match super::load_survey(&req.picks, req.surface.as_deref()) {
         Ok(s) => s,
