@@ -143,6 +143,76 @@ pub struct SectionDecor<'a> {
     pub footnote: Option<String>,
     /// An interface to draw as a dashed white line: (x, elevation) points and its label.
     pub interface: Option<(Vec<(f64, f64)>, String)>,
+    /// The 68 % band of the depth to the interface's velocity, one entry per model
+    /// column that has one: (x, upper elevation, lower elevation), sorted by x. Drawn
+    /// as a light translucent band under the dashed `interface` line, broken where
+    /// neighbouring columns are more than 3 grid steps apart.
+    pub band: Option<Vec<(f64, f64, f64)>>,
+    /// What the node values are, and so the colour scale and its label.
+    pub scale: SectionScale,
+}
+
+/// What the values of a section are: they decide its colour scale and bar label.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub enum SectionScale {
+    /// P-wave velocity, m/s, in viridis.
+    #[default]
+    Velocity,
+    /// Spread (1σ) of an ensemble of models, m/s, in a pale-lilac-to-black ramp that
+    /// is not to be read as velocity.
+    Spread,
+}
+
+impl SectionScale {
+    /// The colour of `v` on this scale over `lo..hi`.
+    fn colour(self, v: f64, lo: f64, hi: f64) -> RGBColor {
+        match self {
+            SectionScale::Velocity => colour(v, lo, hi),
+            SectionScale::Spread => ramp(&SPREAD_PALETTE, (v - lo) / (hi - lo)),
+        }
+    }
+
+    /// The colour bar's label.
+    fn label(self) -> &'static str {
+        match self {
+            SectionScale::Velocity => "velocity (m/s)",
+            SectionScale::Spread => "ensemble spread, 1σ (m/s)",
+        }
+    }
+
+    /// What the contour lines are, in the legend.
+    fn contours(self) -> &'static str {
+        match self {
+            SectionScale::Velocity => "velocity contours",
+            SectionScale::Spread => "spread contours",
+        }
+    }
+}
+
+/// Light-to-dark sequence for the ensemble spread: pale lilac through violet and
+/// plum to near black. Neither viridis (velocity) nor the coverage figure's
+/// yellow-to-brown, so a spread map is not read as either. It starts short of white,
+/// so the smallest spreads stand apart from the page and from air.
+const SPREAD_PALETTE: [(u8, u8, u8); 7] = [
+    (240, 234, 246),
+    (206, 188, 226),
+    (167, 134, 202),
+    (128, 84, 172),
+    (93, 44, 132),
+    (55, 18, 80),
+    (14, 4, 20),
+];
+
+/// The colour at `t` in `[0, 1]` (clamped) along a palette, interpolated linearly
+/// between its entries.
+fn ramp(palette: &[(u8, u8, u8)], t: f64) -> RGBColor {
+    let t = if t.is_nan() { 0.0 } else { t.clamp(0.0, 1.0) };
+    let f = t * (palette.len() - 1) as f64;
+    let k = (f.floor() as usize).min(palette.len() - 2);
+    let w = f - k as f64;
+    let (a, b) = (palette[k], palette[k + 1]);
+    let mix = |p: u8, q: u8| (p as f64 + w * (q as f64 - p as f64)).round() as u8;
+    RGBColor(mix(a.0, b.0), mix(a.1, b.1), mix(a.2, b.2))
 }
 
 /// A straight piece of a contour line.
@@ -319,6 +389,147 @@ fn node_cell(
     )
 }
 
+/// The filled cells of every node `colour` gives a colour (`None`: not drawn), each
+/// run of neighbours of one colour along a row merged into one rectangle. The pixels
+/// are those of the single cells (see `node_cell`), but a smooth model's SVG has a
+/// fraction of the elements.
+fn cell_runs(
+    s: &GridSpec,
+    fr: &SectionFrame,
+    colour: impl Fn(usize) -> Option<RGBColor>,
+) -> Vec<Rectangle<(f64, f64)>> {
+    let (half_x, half_z) = (0.5 * s.dx, 0.5 * s.dz);
+    let mut out = Vec::new();
+    for j in 0..s.nz {
+        let z = s.z(j);
+        let (zlo, zhi) = ((z - half_z).max(fr.z.0), (z + half_z).min(fr.z.1));
+        let mut i = 0;
+        while i < s.nx {
+            let Some(c) = colour(s.idx(i, j)) else {
+                i += 1;
+                continue;
+            };
+            let start = i;
+            while i + 1 < s.nx && colour(s.idx(i + 1, j)) == Some(c) {
+                i += 1;
+            }
+            out.push(Rectangle::new(
+                [
+                    ((s.x(start) - half_x).max(fr.x.0), zlo),
+                    ((s.x(i) + half_x).min(fr.x.1), zhi),
+                ],
+                c.filled(),
+            ));
+            i += 1;
+        }
+    }
+    out
+}
+
+/// Colour of the hatching over unconstrained ground.
+const HATCH: RGBColor = RGBColor(58, 58, 58);
+
+/// Distance between neighbouring hatch lines along a pixel row or column, px: the
+/// lines are 45° on screen, so they are 13/√2 ≈ 9.2 px apart.
+const HATCH_STEP: i32 = 13;
+
+/// Hatches the cells of the nodes of `s` for which `mark(k)` holds: thin dark-grey
+/// lines rising at 45° on the screen, whatever the vertical exaggeration, clipped to
+/// those cells (and to the plot). The cells are rasterised into a mask of the plot's
+/// pixels, and each line is drawn as one piece per run of masked pixels it crosses,
+/// so a hatched region of many nodes costs a few elements per line, not per node.
+fn hatch_nodes<DB: DrawingBackend>(
+    ch: &SectionChart<DB>,
+    s: &GridSpec,
+    mark: impl Fn(usize) -> bool,
+) -> Drawn<(), DB> {
+    let area = ch.plotting_area().strip_coord_spec();
+    let (w, h) = area.dim_in_pixel();
+    let (w, h) = (w as i32, h as i32);
+    let (bx, by) = area.get_base_pixel();
+    let (xr, zr) = (ch.x_range(), ch.y_range());
+    // cell edges from one formula, so neighbouring cells share theirs exactly
+    let x_edge = |e: usize| (s.x0 + (e as f64 - 0.5) * s.dx).clamp(xr.start, xr.end);
+    let z_edge = |e: usize| (s.z0 + (e as f64 - 0.5) * s.dz).clamp(zr.start, zr.end);
+    let mut mask = vec![false; (w.max(0) * h.max(0)) as usize];
+    let mut any = false;
+    for j in 0..s.nz {
+        for i in 0..s.nx {
+            if !mark(s.idx(i, j)) {
+                continue;
+            }
+            // the cell's pixels, half-open so that a line stops short of the
+            // neighbouring cell
+            let a = ch.backend_coord(&(x_edge(i), z_edge(j + 1)));
+            let b = ch.backend_coord(&(x_edge(i + 1), z_edge(j)));
+            let (u0, u1) = ((a.0 - bx).clamp(0, w), (b.0 - bx).clamp(0, w));
+            let (v0, v1) = ((a.1 - by).clamp(0, h), (b.1 - by).clamp(0, h));
+            for v in v0..v1 {
+                let row = (v * w) as usize;
+                mask[row + u0 as usize..row + u1 as usize].fill(true);
+                any |= u1 > u0;
+            }
+        }
+    }
+    if !any {
+        return Ok(());
+    }
+    // the lines u + v = c; along one, u runs over [c − (h − 1), c] within the plot
+    let mut pieces = Vec::new();
+    for c in (HATCH_STEP / 2..w + h).step_by(HATCH_STEP as usize) {
+        let (ua, ub) = ((c - (h - 1)).max(0), c.min(w - 1));
+        let mut start = None;
+        for u in ua..=ub + 1 {
+            let on = u <= ub && mask[((c - u) * w + u) as usize];
+            match (on, start) {
+                (true, None) => start = Some(u),
+                (false, Some(u0)) => {
+                    if u - 1 > u0 {
+                        pieces.push(vec![(u0, c - u0), (u - 1, c - (u - 1))]);
+                    }
+                    start = None;
+                }
+                _ => {}
+            }
+        }
+    }
+    for p in pieces {
+        area.draw(&PathElement::new(p, HATCH.stroke_width(1)))?;
+    }
+    Ok(())
+}
+
+/// The band of `band` ((x, upper, lower) per column, sorted by x) as translucent
+/// white polygons with thin white edges, one per run of columns no more than
+/// `max_gap` apart; a lone column is drawn `dx` wide.
+fn draw_band<DB: DrawingBackend>(
+    ch: &mut SectionChart<DB>,
+    band: &[(f64, f64, f64)],
+    max_gap: f64,
+    dx: f64,
+) -> Drawn<(), DB> {
+    let fill = WHITE.mix(0.45);
+    let edge = WHITE.mix(0.9).stroke_width(1);
+    let mut start = 0;
+    for end in 1..=band.len() {
+        if end < band.len() && (band[end].0 - band[end - 1].0).abs() <= max_gap {
+            continue;
+        }
+        let run = &band[start..end];
+        start = end;
+        let run = match *run {
+            [(x, a, b)] => vec![(x - 0.5 * dx, a, b), (x + 0.5 * dx, a, b)],
+            _ => run.to_vec(),
+        };
+        let upper: Vec<(f64, f64)> = run.iter().map(|&(x, a, _)| (x, a)).collect();
+        let lower: Vec<(f64, f64)> = run.iter().map(|&(x, _, b)| (x, b)).collect();
+        let outline: Vec<(f64, f64)> = upper.iter().chain(lower.iter().rev()).copied().collect();
+        ch.draw_series(std::iter::once(Polygon::new(outline, fill.filled())))?;
+        ch.draw_series([upper, lower].map(|l| PathElement::new(l, edge)))?;
+    }
+    Ok(())
+}
+
 /// The ground surface as a line across the plot, sampled finely enough to follow
 /// every vertex of a surveyed profile.
 fn draw_surface<DB: DrawingBackend>(
@@ -396,7 +607,11 @@ fn colour_bar<'a, DB: DrawingBackend, Y: AsRangedCoord<Value = f64>>(
 }
 
 /// Draws a velocity section: colour-filled model, contours, ground surface, stations
-/// and a colour bar, with the vertical exaggeration stated.
+/// and a colour bar, with the vertical exaggeration stated. Ground the rays do not
+/// constrain (`covered` false) is washed grey and hatched; the `band` is drawn under
+/// the dashed `interface`; `scale` picks the colour scale (velocity, or an ensemble's
+/// spread). The section is the same for any node values: a spread map is drawn
+/// through it too.
 pub fn velocity_section(
     stem: &Path,
     m: &VelocityGrid,
@@ -425,30 +640,35 @@ pub fn velocity_section(
         .map(|&c| (c, contour_segments(m, c)))
         .collect();
     let title = format!("{}  (vertical exaggeration {}×)", d.title, fr.ve);
+    // unconstrained ground: covered false, not air
+    let open = |k: usize| d.covered.and_then(|c| c.get(k)) == Some(&false) && !m.v[k].is_nan();
+    let mut legend = String::from("▲ receivers   ● shots   — ground surface");
+    if !levels.is_empty() {
+        legend += &format!("   black lines: {}", d.scale.contours());
+    }
+    if (0..s.len()).any(open) {
+        legend += "   hatched: no ray coverage";
+    }
+    if d.band.as_ref().is_some_and(|b| !b.is_empty()) {
+        legend += "   light band: 68 % range of the dashed line";
+    }
     figure!(stem, fr.size, |root| {
         let [main, foot, bar] = section_panels(&root, &fr)?;
         let mut ch = section_axes(&main, &fr, &title)?;
-        for j in 0..s.nz {
-            for i in 0..s.nx {
-                let k = s.idx(i, j);
-                let v = m.v[k];
-                if v.is_nan() {
-                    continue;
-                }
-                let mut c = colour(v, vlo, vhi);
-                if let Some(cov) = d.covered {
-                    if !cov[k] {
-                        // unconstrained: wash towards grey
-                        c = RGBColor(
-                            ((c.0 as u16 + 2 * 200) / 3) as u8,
-                            ((c.1 as u16 + 2 * 200) / 3) as u8,
-                            ((c.2 as u16 + 2 * 200) / 3) as u8,
-                        );
-                    }
-                }
-                ch.draw_series(std::iter::once(node_cell(&s, &fr, i, j, c)))?;
+        ch.draw_series(cell_runs(&s, &fr, |k| {
+            let v = m.v[k];
+            if v.is_nan() {
+                return None; // air
             }
-        }
+            let c = d.scale.colour(v, vlo, vhi);
+            if !open(k) {
+                return Some(c);
+            }
+            // unconstrained: wash towards grey
+            let wash = |x: u8| ((x as u16 + 2 * 200) / 3) as u8;
+            Some(RGBColor(wash(c.0), wash(c.1), wash(c.2)))
+        }))?;
+        hatch_nodes(&ch, &s, open)?;
         for (_, ss) in &segs {
             ch.draw_series(
                 ss.iter().map(|sg| {
@@ -457,6 +677,9 @@ pub fn velocity_section(
             )?;
         }
         draw_surface(&mut ch, &fr, d.surface)?;
+        if let Some(band) = &d.band {
+            draw_band(&mut ch, band, 3.0 * s.dx, s.dx)?;
+        }
         if let Some((pts, label)) = &d.interface {
             // dashed: every other short piece between neighbouring columns
             let white = RGBColor(255, 255, 255);
@@ -477,8 +700,11 @@ pub fn velocity_section(
             }
         }
         draw_stations(&mut ch, d.receivers, d.sources)?;
-        let legend = "▲ receivers   ● shots   — ground surface   black lines: velocity contours";
-        draw_footer(&foot, legend, d.footnote.as_deref(), 560)?;
+        let legend_w = foot
+            .estimate_text_size(&legend, &("sans-serif", 14).into())?
+            .0;
+        let note_x = (80 + legend_w as i32 + 40).max(560);
+        draw_footer(&foot, &legend, d.footnote.as_deref(), note_x)?;
         let mut cb = colour_bar(&bar, vlo..vhi)?;
         let n = 120;
         cb.draw_series((0..n).map(|k| {
@@ -486,7 +712,7 @@ pub fn velocity_section(
             let b = vlo + (vhi - vlo) * (k + 1) as f64 / n as f64;
             Rectangle::new(
                 [(0.0, a), (1.0, b)],
-                colour(0.5 * (a + b), vlo, vhi).filled(),
+                d.scale.colour(0.5 * (a + b), vlo, vhi).filled(),
             )
         }))?;
         for &c in &levels {
@@ -498,7 +724,7 @@ pub fn velocity_section(
         cb.configure_mesh()
             .disable_mesh()
             .disable_x_axis()
-            .y_desc("velocity (m/s)")
+            .y_desc(d.scale.label())
             .y_label_formatter(&tick)
             .label_style(("sans-serif", 14))
             .axis_desc_style(("sans-serif", 15))
@@ -557,12 +783,7 @@ const DWS_PALETTE: [(u8, u8, u8); 8] = [
 
 /// The palette colour of `t` in `[0, 1]` (clamped), interpolated linearly.
 fn dws_colour(t: f64) -> RGBColor {
-    let f = t.clamp(0.0, 1.0) * (DWS_PALETTE.len() - 1) as f64;
-    let k = (f.floor() as usize).min(DWS_PALETTE.len() - 2);
-    let w = f - k as f64;
-    let (a, b) = (DWS_PALETTE[k], DWS_PALETTE[k + 1]);
-    let mix = |p: u8, q: u8| (p as f64 + w * (q as f64 - p as f64)).round() as u8;
-    RGBColor(mix(a.0, b.0), mix(a.1, b.1), mix(a.2, b.2))
+    ramp(&DWS_PALETTE, t)
 }
 
 /// The colour scale's range in log10 of the derivative weight sum: the 2nd to 99.5th
@@ -947,6 +1168,183 @@ pub fn loss_curves(
             .border_style(BLACK)
             .label_font(("sans-serif", 15))
             .draw()?;
+        root.present()?;
+        Ok(())
+    })
+}
+
+/// Width of a bin of the residual histogram, in σ.
+const RESIDUAL_BIN: f64 = 0.25;
+
+/// The residual histogram spans ±this many σ; values beyond fall into the end bins.
+const RESIDUAL_LIMIT: f64 = 4.0;
+
+/// Share of a standard normal variable beyond ±2: 2·(1 − Φ(2)).
+const NORMAL_BEYOND_2: f64 = 0.045_500_26;
+
+/// Histogram of the normalised residuals r/σ (observed − predicted over each pick's
+/// σ; `residuals_ms[k]` and `sigma_ms[k]` belong to pick `k`) in bins 0.25 wide over
+/// −4..4, values beyond ±4 counted in the end bins, with the standard normal density
+/// scaled to counts over it: what the histogram would be if the misfit were nothing
+/// but picking noise of the stated σ. The legend gives the number of picks, the mean
+/// and RMS of r/σ and the share beyond ±2 against the normal's 4.6 %. Picks with a
+/// non-finite residual or a σ that is not positive are left out (and the count says
+/// so); slices of different lengths are an error; no picks draw an empty figure.
+pub fn residual_histogram(
+    stem: &Path,
+    title: &str,
+    residuals_ms: &[f64],
+    sigma_ms: &[f64],
+) -> Result<(), FigureError> {
+    if residuals_ms.len() != sigma_ms.len() {
+        return Err(FigureError::Draw {
+            file: stem.with_extension("png").display().to_string(),
+            message: format!(
+                "{} residuals against {} pick σ",
+                residuals_ms.len(),
+                sigma_ms.len()
+            ),
+        });
+    }
+    let z: Vec<f64> = residuals_ms
+        .iter()
+        .zip(sigma_ms)
+        .filter(|(r, s)| r.is_finite() && s.is_finite() && **s > 0.0)
+        .map(|(r, s)| r / s)
+        .collect();
+    let skipped = residuals_ms.len() - z.len();
+    let nbins = (2.0 * RESIDUAL_LIMIT / RESIDUAL_BIN).round() as usize;
+    let mut counts = vec![0usize; nbins];
+    for &v in &z {
+        let b = ((v + RESIDUAL_LIMIT) / RESIDUAL_BIN).floor();
+        counts[b.clamp(0.0, (nbins - 1) as f64) as usize] += 1;
+    }
+    let n = z.len();
+    let beyond = z.iter().filter(|v| v.abs() > RESIDUAL_LIMIT).count();
+    let peak = n as f64 * RESIDUAL_BIN / (2.0 * std::f64::consts::PI).sqrt();
+    // at least 0..5 picks, so a near-empty figure does not get fractional ticks
+    let ymax = (counts.iter().copied().max().unwrap_or(0) as f64)
+        .max(peak)
+        .max(5.0)
+        * 1.15;
+    let mut lines = vec![if n == 0 {
+        "no picks".to_string()
+    } else if skipped > 0 {
+        format!("{n} picks ({skipped} without a finite residual and σ left out)")
+    } else {
+        format!("{n} picks")
+    }];
+    if n > 0 {
+        let mean = z.iter().sum::<f64>() / n as f64;
+        let rms = (z.iter().map(|v| v * v).sum::<f64>() / n as f64).sqrt();
+        let over2 = z.iter().filter(|v| v.abs() > 2.0).count() as f64 / n as f64;
+        lines.push(format!(
+            "mean r/σ {mean:+.2}, RMS r/σ {rms:.2} (noise alone: 0, 1)"
+        ));
+        lines.push(format!(
+            "|r/σ| > 2: {:.1} % (noise alone: {:.1} %)",
+            100.0 * over2,
+            100.0 * NORMAL_BEYOND_2
+        ));
+    }
+    if beyond > 0 {
+        lines.push(format!("{beyond} beyond ±4, counted in the end bins"));
+    }
+    let curve: Vec<(f64, f64)> = (0..=400)
+        .map(|k| {
+            let x = -RESIDUAL_LIMIT + 2.0 * RESIDUAL_LIMIT * k as f64 / 400.0;
+            (x, peak * (-0.5 * x * x).exp())
+        })
+        .collect();
+    let bar = RGBColor(86, 124, 176);
+    let normal = RGBColor(196, 58, 36);
+    figure!(stem, (1100, 600), |root| {
+        root.fill(&WHITE)?;
+        let mut ch = ChartBuilder::on(&root)
+            .caption(title, ("sans-serif", 22))
+            .margin(14)
+            .x_label_area_size(45)
+            .y_label_area_size(75)
+            .build_cartesian_2d(-RESIDUAL_LIMIT..RESIDUAL_LIMIT, 0.0..ymax)?;
+        ch.configure_mesh()
+            .light_line_style(TRANSPARENT)
+            .bold_line_style(RGBColor(232, 232, 232))
+            .x_desc("residual / σ (observed − predicted)")
+            .y_desc("picks per bin")
+            .x_label_formatter(&tick)
+            // counts: whole numbers only
+            .y_label_formatter(&|v: &f64| {
+                if (v - v.round()).abs() < 1e-9 {
+                    format!("{v:.0}")
+                } else {
+                    String::new()
+                }
+            })
+            .label_style(("sans-serif", 15))
+            .axis_desc_style(("sans-serif", 16))
+            .draw()?;
+        ch.draw_series(
+            counts
+                .iter()
+                .enumerate()
+                .filter(|c| *c.1 > 0)
+                .map(|(b, &c)| {
+                    let x = -RESIDUAL_LIMIT + b as f64 * RESIDUAL_BIN;
+                    Rectangle::new([(x, 0.0), (x + RESIDUAL_BIN, c as f64)], bar.filled())
+                }),
+        )?
+        .label("picks, bins 0.25 σ wide")
+        .legend(move |(x, y)| Rectangle::new([(x, y - 6), (x + 20, y + 6)], bar.filled()));
+        // thin white gaps between neighbouring bars
+        ch.draw_series(
+            counts
+                .iter()
+                .enumerate()
+                .filter(|c| *c.1 > 0)
+                .map(|(b, &c)| {
+                    let x = -RESIDUAL_LIMIT + b as f64 * RESIDUAL_BIN;
+                    PathElement::new(vec![(x, 0.0), (x, c as f64)], WHITE.stroke_width(1))
+                }),
+        )?;
+        let curve = if n > 0 { curve.as_slice() } else { &[] };
+        ch.draw_series(LineSeries::new(
+            curve.iter().copied(),
+            normal.stroke_width(2),
+        ))?
+        .label("standard normal × picks × 0.25: picking noise of the stated σ alone")
+        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], normal.stroke_width(2)));
+        // ±2: where the share beyond is counted, over the bars
+        let dash = RGBColor(100, 100, 100);
+        for x in [-2.0, 2.0] {
+            let drawn = ch.draw_series(DashedLineSeries::new(
+                [(x, 0.0), (x, ymax)],
+                6,
+                4,
+                dash.stroke_width(1),
+            ))?;
+            if x > 0.0 {
+                drawn.label("|r/σ| = 2").legend(move |(x, y)| {
+                    EmptyElement::at((x, y))
+                        + PathElement::new(vec![(0, 0), (7, 0)], dash.stroke_width(1))
+                        + PathElement::new(vec![(12, 0), (19, 0)], dash.stroke_width(1))
+                });
+            }
+        }
+        ch.configure_series_labels()
+            .position(SeriesLabelPosition::UpperRight)
+            .background_style(WHITE.mix(0.85))
+            .border_style(BLACK)
+            .label_font(("sans-serif", 14))
+            .draw()?;
+        let (px, py) = ch.plotting_area().get_pixel_range();
+        let font = ("sans-serif", 14).into_font();
+        for (k, l) in lines.iter().enumerate() {
+            root.draw(&Text::new(
+                l.clone(),
+                (px.start + 10, py.start + 10 + 20 * k as i32),
+                font.clone(),
+            ))?;
+        }
         root.present()?;
         Ok(())
     })

@@ -1,8 +1,8 @@
 //! Figures are written as PNG and SVG, complete, for a model with topography and air.
 
 use slowfield::figures::{
-    loss_curves, ray_coverage, traveltime_curves, velocity_section, CoverageFigure, SectionDecor,
-    ShotCurve,
+    loss_curves, ray_coverage, residual_histogram, traveltime_curves, velocity_section,
+    CoverageFigure, SectionDecor, SectionScale, ShotCurve,
 };
 use slowfield::model::{GridSpec, VelocityGrid};
 use slowfield::survey::{Point, Surface};
@@ -591,4 +591,192 @@ fn ray_coverage_greys_unreached_ground_and_darkens_with_coverage() {
             std::fs::copy(dir.path().join(n), std::path::Path::new(&keep).join(n)).unwrap();
         }
     }
+}
+
+/// Copies the named figures to `$SLOWFIELD_KEEP_FIGURES` when it is set, to look at.
+fn keep(dir: &std::path::Path, names: &[&str]) {
+    if let Ok(keep) = std::env::var("SLOWFIELD_KEEP_FIGURES") {
+        for n in names {
+            std::fs::copy(dir.join(n), std::path::Path::new(&keep).join(n)).unwrap();
+        }
+    }
+}
+
+#[test]
+fn residual_histogram_draws_bars_and_the_normal() {
+    let dir = tempfile::tempdir().unwrap();
+    // 400 picks: a deterministic spread of r/σ over about ±2.5 with a few far out, σ
+    // varying per pick
+    let sigma: Vec<f64> = (0..400).map(|k| 0.5 + 0.25 * (k % 3) as f64).collect();
+    let resid: Vec<f64> = (0..400)
+        .map(|k| {
+            let u = (k as f64 + 0.5) / 400.0;
+            let z = if k % 97 == 0 {
+                5.5
+            } else {
+                2.5 * (2.0 * u - 1.0).powi(3)
+            };
+            z * sigma[k]
+        })
+        .collect();
+    let stem = dir.path().join("residuals");
+    residual_histogram(&stem, "test residuals", &resid, &sigma).unwrap();
+    let bytes = std::fs::read(dir.path().join("residuals.png")).unwrap();
+    let p = decode_png(&bytes);
+    assert_eq!((p.w, p.h), (1100, 600));
+    let svg = std::fs::read_to_string(dir.path().join("residuals.svg")).unwrap();
+    assert!(svg.starts_with("<svg") && svg.trim_end().ends_with("</svg>"));
+    for text in [
+        "test residuals",
+        "residual / σ (observed − predicted)",
+        "picks per bin",
+        "400 picks",
+        "5 beyond ±4",
+        "noise alone: 4.6 %",
+    ] {
+        assert!(svg.contains(text), "the SVG says {text:?}");
+    }
+    // the bars: a good share of the plot in the bar colour, and a rectangle per
+    // non-empty bin beyond the page, the legend's box and swatch
+    let bar = [86, 124, 176];
+    let bar_px = (0..p.h)
+        .flat_map(|y| (0..p.w).map(move |x| (x, y)))
+        .filter(|&(x, y)| p.at(x, y) == bar)
+        .count();
+    assert!(bar_px > 20_000, "{bar_px} pixels of bars");
+    let rects = svg.matches("<rect").count();
+    assert!(rects >= 20 + 3, "{rects} rectangles");
+    // no picks: still a figure; lengths that differ: an error
+    residual_histogram(&dir.path().join("none"), "no picks", &[], &[]).unwrap();
+    let p = decode_png(&std::fs::read(dir.path().join("none.png")).unwrap());
+    assert_eq!((p.w, p.h), (1100, 600));
+    assert!(residual_histogram(&dir.path().join("bad"), "bad", &[1.0], &[]).is_err());
+    keep(dir.path(), &["residuals.png", "residuals.svg", "none.png"]);
+}
+
+/// A flat 120 m × 20 m section of 61 × 21 nodes, all ground, velocity rising with depth.
+fn flat_section() -> (GridSpec, VelocityGrid) {
+    let spec = GridSpec {
+        x0: 0.0,
+        z0: -20.0,
+        dx: 2.0,
+        dz: 1.0,
+        nx: 61,
+        nz: 21,
+    };
+    let m = VelocityGrid::from_fn(spec, None, |_, z| 500.0 - 60.0 * z);
+    (spec, m)
+}
+
+#[test]
+fn unconstrained_ground_is_hatched_and_only_there() {
+    let dir = tempfile::tempdir().unwrap();
+    let (spec, m) = flat_section();
+    // lower half (elevation below −10 m) unconstrained
+    let lower: Vec<bool> = (0..spec.len())
+        .map(|k| spec.z(k / spec.nx) >= -10.0)
+        .collect();
+    let all = vec![true; spec.len()];
+    for (stem, covered) in [("covered", &all), ("half", &lower)] {
+        let decor = SectionDecor {
+            title: "hatching".into(),
+            covered: Some(covered),
+            contours: Some(vec![]),
+            ..Default::default()
+        };
+        velocity_section(&dir.path().join(stem), &m, &decor).unwrap();
+    }
+    let hatch = |c: [u8; 3]| c[0] == c[1] && c[1] == c[2] && c[0] < 110;
+    let read = |n: &str| decode_png(&std::fs::read(dir.path().join(n)).unwrap());
+    // elevation → pixel row through the plot rectangle (no surface: the plot spans the
+    // grid's rows)
+    let (full, half) = (read("covered.png"), read("half.png"));
+    let (left, top, right, bottom) = plot_rect(&half, 1250);
+    assert_eq!(plot_rect(&full, 1250), (left, top, right, bottom));
+    let row = |z: f64| {
+        let t = (z - spec.z0) / (spec.z_max() - spec.z0);
+        (bottom as f64 - t * (bottom - top) as f64).round() as usize
+    };
+    let count = |p: &Pixels, rows: std::ops::Range<usize>| {
+        rows.flat_map(|y| (left + 3..right - 3).map(move |x| (x, y)))
+            .filter(|&(x, y)| hatch(p.at(x, y)))
+            .count()
+    };
+    // covered ground, 3 px clear of the boundary and the axes; the uncovered band
+    let upper_rows = top + 3..row(-10.5) - 3;
+    let lower_rows = row(-10.5) + 3..bottom - 3;
+    assert_eq!(count(&full, top + 3..bottom - 3), 0, "nothing hatched");
+    assert_eq!(count(&half, upper_rows), 0, "covered ground is not hatched");
+    let n = count(&half, lower_rows.clone());
+    let area = (lower_rows.len() * (right - left - 6)) as f64;
+    // one pixel in about 13 along a row: lines 9.2 px apart
+    assert!(
+        n as f64 > 0.05 * area && (n as f64) < 0.12 * area,
+        "{n} hatch pixels over {area} px"
+    );
+    // 45° on the screen: the lines are as far apart along a row as along a column
+    let gaps = |hits: Vec<usize>| -> Vec<usize> { hits.windows(2).map(|w| w[1] - w[0]).collect() };
+    let y = lower_rows.start + lower_rows.len() / 2;
+    let along_row = gaps(
+        (left + 3..right - 3)
+            .filter(|&x| hatch(half.at(x, y)))
+            .collect(),
+    );
+    let x = (left + right) / 2;
+    let along_col = gaps(
+        lower_rows
+            .clone()
+            .filter(|&y| hatch(half.at(x, y)))
+            .collect(),
+    );
+    assert!(along_row.len() > 20 && along_col.len() > 3);
+    for g in along_row.iter().chain(&along_col) {
+        assert!(
+            (12..=14).contains(g),
+            "gaps along a row {along_row:?}, a column {along_col:?}"
+        );
+    }
+    let svg = std::fs::read_to_string(dir.path().join("half.svg")).unwrap();
+    assert!(svg.contains("hatched: no ray coverage"));
+    assert!(
+        !svg.contains("contours"),
+        "no contour lines, none in the legend"
+    );
+    keep(dir.path(), &["covered.png", "half.png", "half.svg"]);
+}
+
+#[test]
+fn spread_section_with_a_depth_band_is_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let (spec, _) = flat_section();
+    let spread = VelocityGrid::from_fn(spec, None, |x, z| 20.0 - 4.0 * z + 0.2 * x);
+    // the band around −8 m, ±1.5 m, with a gap from 50 m to 70 m
+    let band: Vec<(f64, f64, f64)> = (0..spec.nx)
+        .map(|i| spec.x(i))
+        .filter(|x| !(50.0..70.0).contains(x))
+        .map(|x| (x, -6.5 + 0.02 * x, -9.5 + 0.02 * x))
+        .collect();
+    let line: Vec<(f64, f64)> = band.iter().map(|b| (b.0, 0.5 * (b.1 + b.2))).collect();
+    let covered: Vec<bool> = (0..spec.len())
+        .map(|k| spec.z(k / spec.nx) > -15.0)
+        .collect();
+    let decor = SectionDecor {
+        title: "test spread".into(),
+        covered: Some(&covered),
+        interface: Some((line, "1500 m/s".into())),
+        band: Some(band),
+        scale: SectionScale::Spread,
+        ..Default::default()
+    };
+    velocity_section(&dir.path().join("spread"), &spread, &decor).unwrap();
+    let p = decode_png(&std::fs::read(dir.path().join("spread.png")).unwrap());
+    assert_eq!(p.w, 1400);
+    assert!(p.h > 300 && p.h < 1200, "{}", p.h);
+    let svg = std::fs::read_to_string(dir.path().join("spread.svg")).unwrap();
+    assert!(svg.contains("ensemble spread, 1σ (m/s)"));
+    assert!(svg.contains("spread contours") && !svg.contains("velocity"));
+    assert!(svg.contains("light band"));
+    // the band: two pieces either side of the gap
+    assert_eq!(svg.matches("<polygon").count(), 2);
+    keep(dir.path(), &["spread.png", "spread.svg"]);
 }
