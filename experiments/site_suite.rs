@@ -423,6 +423,7 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
         settings,
         &inv,
         seconds,
+        None,
     );
     slowfield::report::write_run(out, &problem, &inv, &report)?;
     if let Some(cp) = &keep.0 {
@@ -475,7 +476,7 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
                     .collect::<Vec<_>>()
                     .join(" "),
             ),
-            History::Training { .. } => None,
+            _ => None,
         })
         .unwrap_or_default();
     // truth and inversion on one colour scale, the covered zone marked on both
@@ -505,7 +506,7 @@ fn run_case(c: &Case, settings: &RunSettings, out: &Path) -> anyhow::Result<Row>
             sources: &sources,
             covered: Some(covered),
             v_range: Some((lo, hi)),
-            footnote: Some("pale: no ray coverage in the inverted model".into()),
+            footnote: Some("hatched: no ray coverage in the inverted model".into()),
             ..Default::default()
         };
         slowfield::figures::velocity_section(&out.join(stem), m, &decor)?;

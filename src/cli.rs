@@ -171,6 +171,15 @@ pub struct InvertArgs {
     /// Continue the run whose checkpoint is in this folder.
     #[arg(long, value_name = "DIR")]
     pub resume: Option<PathBuf>,
+    /// Also run an ensemble of N members (each inverts the picks redrawn within
+    /// their σ, with its own seed): velocity.csv becomes their mean, velocity_std.csv
+    /// their spread, and the depth to --iso-velocity gets a 68 % band.
+    #[arg(long, value_name = "N")]
+    pub ensemble: Option<usize>,
+    /// Velocity whose depth below the ground is mapped along the line (iso-depth.csv
+    /// and the line on the section), m/s (default: the settings' interface_mps, 1500).
+    #[arg(long, value_name = "MPS")]
+    pub iso_velocity: Option<f64>,
 }
 
 /// Arguments of `compare`.
@@ -226,6 +235,9 @@ pub struct DemoArgs {
     /// Training steps at most (default: the run's default).
     #[arg(long)]
     pub steps: Option<usize>,
+    /// Ensemble members of each method (0: none).
+    #[arg(long, value_name = "N", default_value_t = crate::jobs::DEMO_MEMBERS)]
+    pub ensemble: usize,
 }
 
 /// Runs a parsed command line; the exit code says whether the input was usable.
@@ -278,6 +290,8 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     RegFlag::WaveletD4 => GridRegulariser::WaveletD4,
                 }),
                 threads: a.threads,
+                ensemble: a.ensemble,
+                iso_velocity: a.iso_velocity,
             },
         }),
         Command::Compare(a) => jobs::compare(&CompareRequest {
@@ -300,6 +314,7 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Command::Demo(a) => jobs::demo(&DemoRequest {
             output: a.output,
             steps: a.steps,
+            members: Some(a.ensemble),
         }),
     }
 }

@@ -193,7 +193,7 @@ fn invert_writes_every_output_and_resumes_to_the_same_result() {
         "velocity.csv",
         "coverage.csv",
         "fit.csv",
-        "interface-depth.csv",
+        "iso-depth.csv",
         "report.json",
         "report.html",
         "settings.toml",

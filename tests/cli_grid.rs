@@ -138,7 +138,11 @@ fn grid_method_writes_every_output_and_resumes_to_the_same_result() {
     eprintln!("χ² {} → {} (iteration {kept})", chi2(0), chi2(kept));
     assert!(chi2(kept) < 0.8 * chi2(0), "{} → {}", chi2(0), chi2(kept));
     let html = std::fs::read_to_string(d.path().join("full/report.html")).unwrap();
-    assert!(html.contains("Regularisation weight") && html.contains("coverage.png"));
+    assert!(html.contains("Regularisation weight") && html.contains("<b>Ray coverage.</b>"));
+    assert!(
+        html.contains("src=\"data:image/png;base64,"),
+        "figures are embedded"
+    );
     // the coverage table carries the derivative weight sum
     let cov = std::fs::read_to_string(d.path().join("full/coverage.csv")).unwrap();
     assert!(cov.starts_with("x,z,covered,dws_m\n"), "{}", &cov[..40]);

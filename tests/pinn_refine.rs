@@ -113,7 +113,7 @@ fn outer(inv: &Inversion) -> (&[OuterLog], usize, Option<usize>) {
                 resumed_from,
                 ..
             } => Some((iterations.as_slice(), *kept, *resumed_from)),
-            History::Training { .. } => None,
+            _ => None,
         })
         .expect("the refinement ran")
 }

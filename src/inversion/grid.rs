@@ -137,7 +137,7 @@ pub(super) fn run(
     match outcome.unconstrained {
         Some(0) => {}
         Some(n) => notes.push(format!(
-            "{n} of {} cells were reached by no ray and keep the starting model (unconstrained; pale in the figures)",
+            "{n} of {} cells were reached by no ray and keep the starting model (unconstrained; hatched in the figures)",
             cells.len()
         )),
         None => notes.push(
@@ -178,5 +178,6 @@ pub(super) fn run(
             forward: timings,
         }),
         notes,
+        networks: None,
     })
 }

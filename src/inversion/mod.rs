@@ -9,6 +9,7 @@
 //! and the jobs write the result.
 
 mod derive;
+pub mod ensemble;
 mod grid;
 mod pinn;
 
@@ -240,6 +241,13 @@ pub enum History {
         /// Every step's log.
         steps: Vec<StepLog>,
     },
+    /// The members of an ensemble.
+    Ensemble {
+        /// Each member's χ² against its own redrawn picks (inversion grid).
+        chi2: Vec<f64>,
+        /// Each member's wall-clock seconds.
+        seconds: Vec<f64>,
+    },
     /// A linearised stage against fast marching, every outer iteration.
     Linearised {
         /// Every iteration's log.
@@ -331,6 +339,11 @@ pub struct Inversion {
     pub choices: Vec<Choice>,
     /// Wall-clock seconds of the whole inversion, the judge included.
     pub seconds: f64,
+    /// The PINN's networks as they ended (refined, when the refinement ran): where
+    /// an ensemble's members may start.
+    pub networks: Option<crate::pinn::TrainedModel>,
+    /// The ensemble whose mean the model is, when one ran.
+    pub ensemble: Option<ensemble::EnsembleResult>,
 }
 
 /// Why an inversion could not be done.
@@ -353,6 +366,13 @@ pub enum InversionError {
     /// The judge could not solve the model.
     #[error("checking the model by fast marching: {0}")]
     Judge(#[from] VerifyError),
+}
+
+/// The velocity bounds a run of `settings` on `problem` works within (given, or
+/// derived from the picks), m/s.
+pub fn velocity_bounds(problem: &Problem, settings: &RunSettings) -> (f64, f64) {
+    let (r, _) = derive::resolve(problem, settings);
+    (r.pinn.v_min, r.pinn.v_max)
 }
 
 /// Runs the method in `settings` on `problem`, then judges the model.
@@ -412,6 +432,8 @@ pub fn run(
         settings: resolved.clone(),
         choices,
         seconds: t0.elapsed().as_secs_f64(),
+        networks: fitted.networks,
+        ensemble: None,
     })
 }
 
@@ -556,6 +578,8 @@ struct Fitted {
     stages: Vec<Stage>,
     detail: MethodDetail,
     notes: Vec<String>,
+    /// The PINN's networks as they ended (refined, when the refinement ran).
+    networks: Option<crate::pinn::TrainedModel>,
 }
 
 /// The judge: fast marching through `model` on a grid of half the inversion's cell

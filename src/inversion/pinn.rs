@@ -126,6 +126,7 @@ pub(super) fn run(
         },
     }];
     // Second stage: the velocity network refined against fast marching on the grid.
+    let mut networks = outcome.model.clone();
     let final_model = if s.refine.iterations > 0 {
         let t_refine = Instant::now();
         observer.on(Event::Stage {
@@ -165,6 +166,7 @@ pub(super) fn run(
                 resumed_from: r.outer.resumed_from,
             },
         });
+        networks = r.model;
         r.velocity
     } else {
         outcome
@@ -206,5 +208,55 @@ pub(super) fn run(
             dim: s.pinn.dim,
         }),
         notes,
+        networks: Some(networks),
+    })
+}
+
+/// The refinement alone, from networks already trained (and refined): an ensemble
+/// member that starts from the main result. The travel-time network is not trained
+/// again, so the member has no own fit.
+pub(super) fn refine_from(
+    problem: &Problem,
+    settings: &RunSettings,
+    networks: &pinn::TrainedModel,
+    observer: &mut dyn Observer,
+) -> Result<Fitted, InversionError> {
+    let s = settings;
+    let t0 = Instant::now();
+    let mut forward = FmmMisfit::new(&problem.survey, problem.grid, problem.sigma_s.clone());
+    let r = pinn::refine(
+        networks,
+        &problem.grid,
+        &s.refine,
+        &mut forward,
+        None,
+        &mut Relay(observer),
+    )
+    .map_err(|e| InversionError::Method(e.to_string()))?;
+    Ok(Fitted {
+        label: "pinn + refinement against fast marching (from the main result)".into(),
+        model: VelocityGrid {
+            spec: problem.grid,
+            v: r.velocity,
+        },
+        own_fit: None,
+        stages: vec![Stage {
+            name: "refinement against fast marching".into(),
+            seconds: t0.elapsed().as_secs_f64(),
+            history: History::Linearised {
+                iterations: r.outer.history.clone(),
+                kept: r.outer.kept,
+                stop: r.outer.stop,
+                resumed_from: None,
+            },
+        }],
+        detail: MethodDetail::Pinn(PinnDetail {
+            steps: 0,
+            stop: "not trained (started from the main result)".into(),
+            eikonal_rms: f64::NAN,
+            dim: s.pinn.dim,
+        }),
+        notes: Vec::new(),
+        networks: Some(r.model),
     })
 }

@@ -215,6 +215,7 @@ fn run_methods(
             &settings,
             resume,
             invert::interactive(),
+            None,
         )
         .with_context(|| format!("the method {name} failed (the methods finished before it are kept in {}; the same command continues)", work.display()))?;
         if *c == Contender::Pinn {

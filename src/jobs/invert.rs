@@ -8,7 +8,7 @@ use std::time::Instant;
 
 use anyhow::Context;
 
-use crate::inversion::{self, Event, Inversion, InversionError, Problem, Resume};
+use crate::inversion::{self, ensemble, Event, Inversion, InversionError, Problem, Resume};
 use crate::linearised::OuterState;
 use crate::output::write_atomic;
 use crate::pinn::Checkpoint;
@@ -22,6 +22,206 @@ pub const CHECKPOINT: &str = "checkpoint.bin";
 pub const REFINE_STATE: &str = "refine.bin";
 /// Name of grid tomography's state inside an output folder.
 pub const GRID_STATE: &str = "grid.bin";
+/// The folder of an ensemble's members inside an output folder.
+pub const MEMBERS: &str = "members";
+
+/// The ensemble a run's settings ask for, members run at once as the cores allow.
+fn ensemble_plan(settings: &RunSettings) -> Option<ensemble::Plan> {
+    let e = &settings.ensemble;
+    (e.members > 0).then(|| ensemble::Plan {
+        members: e.members,
+        start: e.start,
+        parallel: if e.parallel > 0 {
+            e.parallel
+        } else {
+            std::thread::available_parallelism().map_or(1, |n| n.get())
+        }
+        .min(e.members),
+    })
+}
+
+/// Memory a member run may take at its peak besides what the process holds already
+/// (the demo's PINN run peaks at about 0.3 GB; twice that, and more on larger grids).
+fn runner_bytes(problem: &Problem) -> u64 {
+    (600u64 << 20).max(problem.grid.len() as u64 * 4096)
+}
+
+/// Refuses an ensemble whose members cannot all be held in memory (each member's
+/// model is kept until the mean and the depth band are taken), naming how many would.
+fn check_memory(problem: &Problem, plan: &ensemble::Plan) -> anyhow::Result<()> {
+    let Some(available) = available_memory() else {
+        return Ok(());
+    };
+    let per_member = (problem.grid.len() as u64).saturating_mul(8) + 4096;
+    let runners = (plan.parallel as u64).saturating_mul(runner_bytes(problem));
+    let need = (plan.members as u64)
+        .saturating_mul(per_member)
+        .saturating_add(runners);
+    if need > available {
+        let fit = available.saturating_sub(runners) / per_member;
+        anyhow::bail!(
+            "--ensemble {}: {} members of {} nodes each, with {} running at once, need about {:.1} GB, and {:.1} GB of memory is available: at most {} members fit; ask for fewer members (a few tens give a usable spread)",
+            plan.members,
+            plan.members,
+            problem.grid.len(),
+            plan.parallel,
+            need as f64 / 1e9,
+            available as f64 / 1e9,
+            fit
+        );
+    }
+    Ok(())
+}
+
+/// Available memory by the kernel's estimate (`MemAvailable`), bytes; `None` where
+/// it cannot be read (not Linux).
+fn available_memory() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb * 1024)
+}
+
+/// The identity of an ensemble's members: the main model, the settings and the
+/// picks. A member file of another identity is not reused.
+fn members_fingerprint(problem: &Problem, inv: &Inversion) -> u64 {
+    let mut f = crate::state_bytes::Fnv::new();
+    f.eat_f64s(&inv.model.v);
+    f.eat(inv.settings.to_toml().as_bytes());
+    let times: Vec<f64> = problem.survey.picks.iter().map(|p| p.time).collect();
+    f.eat_f64s(&times);
+    f.eat_f64s(&problem.sigma_s);
+    f.0
+}
+
+/// A member as kept in the work folder: its model (CSV) and this line beside it.
+#[derive(serde::Serialize, serde::Deserialize)]
+struct MemberNote {
+    index: usize,
+    seed: u64,
+    chi2: f64,
+    seconds: f64,
+    fingerprint: String,
+}
+
+/// The members an interrupted run finished (same identity), read back; member files
+/// of another identity are removed.
+fn finished_members(work: &Path, problem: &Problem, fp: u64) -> Vec<ensemble::Member> {
+    let dir = work.join(MEMBERS);
+    let mut out = Vec::new();
+    let Ok(entries) = std::fs::read_dir(&dir) else {
+        return out;
+    };
+    for e in entries.flatten() {
+        let path = e.path();
+        if path.extension().is_none_or(|x| x != "json") {
+            continue;
+        }
+        let csv = path.with_extension("csv");
+        let member = std::fs::read_to_string(&path)
+            .ok()
+            .and_then(|t| serde_json::from_str::<MemberNote>(&t).ok())
+            .filter(|n| n.fingerprint == format!("{fp:016x}"))
+            .and_then(|n| {
+                let m = crate::model::VelocityGrid::read(&csv).ok()?;
+                (m.spec == problem.grid).then_some(ensemble::Member {
+                    index: n.index,
+                    seed: n.seed,
+                    model: m,
+                    chi2: n.chi2,
+                    seconds: 0.0,
+                })
+            });
+        match member {
+            Some(m) => out.push(m),
+            None => {
+                let _ = std::fs::remove_file(&path);
+                let _ = std::fs::remove_file(&csv);
+            }
+        }
+    }
+    out
+}
+
+/// The ensemble after the main run: members already finished by an interrupted run
+/// are read back, the others run (each kept in the work folder as it ends), and the
+/// result takes the members' mean as its model.
+fn run_ensemble(
+    problem: &Problem,
+    inv: Inversion,
+    plan: &ensemble::Plan,
+    work: &Path,
+    progress: bool,
+) -> anyhow::Result<Inversion> {
+    let t0 = Instant::now();
+    let fp = members_fingerprint(problem, &inv);
+    let done: Vec<ensemble::Member> = finished_members(work, problem, fp)
+        .into_iter()
+        .filter(|m| m.index <= plan.members)
+        .collect();
+    let dir = work.join(MEMBERS);
+    std::fs::create_dir_all(&dir).with_context(|| format!("cannot create {}", dir.display()))?;
+    let bar = progress.then(|| {
+        let b = indicatif::ProgressBar::new(plan.members as u64);
+        b.set_style(
+            indicatif::ProgressStyle::with_template(
+                "{elapsed_precise} [{bar:30}] {pos}/{len} ensemble members {msg}",
+            )
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar())
+            .progress_chars("=> "),
+        );
+        b.set_position(done.len() as u64);
+        b
+    });
+    if !done.is_empty() {
+        eprintln!(
+            "note: {} ensemble members finished by an earlier attempt are reused",
+            done.len()
+        );
+    }
+    let mut write_error: Option<String> = None;
+    let mut keep = |m: &ensemble::Member| {
+        let csv = work.join(crate::report::member_file(m.index));
+        let note = MemberNote {
+            index: m.index,
+            seed: m.seed,
+            chi2: m.chi2,
+            seconds: m.seconds,
+            fingerprint: format!("{fp:016x}"),
+        };
+        let r = write_atomic(&csv, m.model.to_csv().as_bytes()).and_then(|_| {
+            write_atomic(
+                &csv.with_extension("json"),
+                serde_json::to_string(&note).unwrap_or_default().as_bytes(),
+            )
+        });
+        if let Err(e) = r {
+            write_error.get_or_insert(format!("cannot keep {}: {e}", csv.display()));
+        }
+        if let Some(b) = &bar {
+            b.inc(1);
+            b.set_message(format!(
+                "(member {}: χ² {:.2}, {:.0} s)",
+                m.index, m.chi2, m.seconds
+            ));
+        }
+    };
+    let members = ensemble::run(problem, &inv, plan, done, &mut keep);
+    if let Some(b) = &bar {
+        b.finish_and_clear();
+    }
+    if let Some(e) = write_error {
+        eprintln!("warning: {e}");
+    }
+    let members = members?;
+    Ok(ensemble::adopt(
+        problem,
+        inv,
+        *plan,
+        members,
+        t0.elapsed().as_secs_f64(),
+    )?)
+}
 
 /// Settings given on the command line; each overrides the settings file.
 #[derive(Debug, Clone, Default)]
@@ -48,6 +248,10 @@ pub struct Overrides {
     pub cell: Option<f64>,
     /// Worker threads.
     pub threads: Option<usize>,
+    /// Ensemble members (`Some(0)` is refused).
+    pub ensemble: Option<usize>,
+    /// The velocity whose depth is mapped, m/s.
+    pub iso_velocity: Option<f64>,
 }
 
 /// What `invert` is asked.
@@ -173,6 +377,12 @@ impl Overrides {
         }
         if let Some(t) = self.threads {
             s.pinn.threads = t;
+        }
+        if let Some(n) = self.ensemble {
+            s.ensemble.members = n;
+        }
+        if let Some(v) = self.iso_velocity {
+            s.interface_mps = v;
         }
     }
 }
@@ -368,10 +578,15 @@ pub fn run(
     settings: &RunSettings,
     resume: Resume,
     progress: bool,
+    qc: Option<&crate::qc::QcReport>,
 ) -> anyhow::Result<Run> {
     let t0 = Instant::now();
     let work = work_dir(out)?;
     let problem = Problem::new(survey, settings);
+    let plan = ensemble_plan(settings);
+    if let Some(plan) = &plan {
+        check_memory(&problem, plan)?;
+    }
     let mut watch = Watch {
         bar: progress.then(|| {
             let b = indicatif::ProgressBar::new(settings.pinn.steps as u64);
@@ -401,15 +616,19 @@ pub fn run(
     if let Some(b) = &watch.bar {
         b.finish_and_clear();
     }
+    let result = match (result, &plan) {
+        (Ok(inv), Some(plan)) => run_ensemble(&problem, inv, plan, &work, progress),
+        (r, _) => r.map_err(anyhow::Error::from),
+    };
     let inv = match result {
         Ok(inv) => inv,
         Err(e) => {
             let kept = keep_or_remove(&work);
-            let e = match e {
-                InversionError::Pick {
+            let e = match e.downcast::<InversionError>() {
+                Ok(InversionError::Pick {
                     index,
                     problem: why,
-                } if index < problem.survey.picks.len() => {
+                }) if index < problem.survey.picks.len() => {
                     let p = &problem.survey.picks[index];
                     anyhow::anyhow!(
                         "{}:{}: shot '{}' at x={} to the receiver at x={}: {why}",
@@ -420,7 +639,8 @@ pub fn run(
                         p.receiver.x
                     )
                 }
-                e => e.into(),
+                Ok(e) => e.into(),
+                Err(e) => e,
             };
             return Err(match kept {
                 Some(note) => e.context(note),
@@ -443,6 +663,7 @@ pub fn run(
         settings,
         &inv,
         t0.elapsed().as_secs_f64(),
+        qc,
     );
     std::fs::create_dir_all(&work)
         .with_context(|| format!("cannot create the work folder {}", work.display()))?;
@@ -460,7 +681,7 @@ pub fn run(
 /// After a failed run: keeps the work folder when it holds a state to continue from
 /// (and says how to continue), removes it otherwise.
 fn keep_or_remove(work: &Path) -> Option<String> {
-    if [CHECKPOINT, GRID_STATE]
+    if [CHECKPOINT, GRID_STATE, MEMBERS]
         .iter()
         .any(|n| work.join(n).exists())
     {
@@ -483,6 +704,9 @@ fn clear_except(work: &Path, inv: &Inversion) -> anyhow::Result<()> {
         .iter()
         .any(|s| matches!(s.history, inversion::History::Linearised { .. }));
     let mut keep: Vec<&str> = vec!["settings.toml"];
+    if inv.ensemble.is_some() {
+        keep.push(MEMBERS);
+    }
     match inv.method {
         Method::Pinn => {
             keep.push(CHECKPOINT);
@@ -540,8 +764,41 @@ pub(crate) fn swap_into_place(work: &Path, out: &Path) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// Refuses an output folder that exists as something else than a folder (a file
+/// there would be moved aside by the finished run).
+pub fn check_output_folder(out: &Path) -> anyhow::Result<()> {
+    if out.exists() && !out.is_dir() {
+        anyhow::bail!(
+            "the output folder {} is a file: give the name of a folder (it is made if missing), e.g. -o results",
+            out.display()
+        );
+    }
+    Ok(())
+}
+
+/// Refuses, before any work, a velocity to map that no model within the run's
+/// velocity bounds can reach (or that every model exceeds at once).
+fn check_iso_velocity(survey: &Survey, settings: &RunSettings) -> anyhow::Result<()> {
+    let problem = Problem::new(survey.clone(), settings);
+    let (lo, hi) = inversion::velocity_bounds(&problem, settings);
+    let v = settings.interface_mps;
+    if !(v > lo && v < hi) {
+        anyhow::bail!(
+            "--iso-velocity {v} m/s lies outside the velocity bounds of this run ({lo:.0}..{hi:.0} m/s), so no model can reach it and no line would be drawn: choose a velocity between them (the default is interface_mps = {} m/s)",
+            RunSettings::default().interface_mps
+        );
+    }
+    Ok(())
+}
+
 /// `slowfield invert`.
 pub fn invert(req: &InvertRequest) -> anyhow::Result<ExitCode> {
+    check_output_folder(&req.output)?;
+    if req.overrides.ensemble == Some(0) {
+        anyhow::bail!(
+            "--ensemble 0: an ensemble needs at least 2 members (8 to 16 give a usable spread); leave the flag out for a single run"
+        );
+    }
     let work = work_dir(&req.output)?;
     let resuming_it = req
         .resume
@@ -570,6 +827,12 @@ pub fn invert(req: &InvertRequest) -> anyhow::Result<ExitCode> {
     for w in &survey.warnings {
         eprintln!("warning: {w}");
     }
+    if req.overrides.iso_velocity.is_some() {
+        // a default outside the bounds is not an error: the report says it is not
+        // reached and draws no line
+        check_iso_velocity(&survey, &settings)?;
+    }
+    let qc = crate::qc::check(&survey, &crate::qc::QcSettings::default());
     let r = run(
         survey,
         &req.picks,
@@ -577,6 +840,7 @@ pub fn invert(req: &InvertRequest) -> anyhow::Result<ExitCode> {
         &settings,
         resume,
         interactive(),
+        Some(&qc),
     )?;
     print!("{}", r.report.summary_text(&req.output));
     Ok(ExitCode::SUCCESS)

@@ -4,6 +4,8 @@
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
+use std::time::Instant;
+
 use anyhow::Context;
 
 pub mod compare;
@@ -66,6 +68,8 @@ pub struct DemoRequest {
     pub output: PathBuf,
     /// Training steps at most (default: the run's default).
     pub steps: Option<usize>,
+    /// Ensemble members of each method (default [`DEMO_MEMBERS`]; 0: none).
+    pub members: Option<usize>,
 }
 
 /// Exit code for input that cannot be used.
@@ -216,91 +220,146 @@ pub fn demo_dir() -> PathBuf {
     }
 }
 
-/// `slowfield demo`: check the shipped picks, invert them with the PINN (checked by
-/// fast marching), and hold the result against the site's true model.
+/// Members of the demo's ensembles: grid tomography's (the PINN's is half of it, so
+/// that the demo stays within a few minutes on 2 cores; see the README's timings).
+pub const DEMO_MEMBERS: usize = 8;
+
+/// `slowfield demo`: the whole job on the shipped picks: check them, invert them with
+/// the PINN and its ensemble and with grid tomography and its ensemble (each checked
+/// by fast marching), hold both against the site's true model, and write one report
+/// at the top of the output folder.
 pub fn demo(a: &DemoRequest) -> anyhow::Result<ExitCode> {
+    let t_all = Instant::now();
     let dir = demo_dir();
     let picks = dir.join("picks.csv");
     let out = &a.output;
     let say = |m: &str| eprintln!("demo: {m}");
+    invert::check_output_folder(out)?;
+    let members = a.members.unwrap_or(DEMO_MEMBERS);
+    if members == 1 {
+        anyhow::bail!("--ensemble 1: an ensemble needs at least 2 members (0 runs none)");
+    }
     // the output folder first, so a bad -o fails before any work is done
     std::fs::create_dir_all(out)
         .with_context(|| format!("cannot create the output folder {}", out.display()))?;
-    say(&format!("1/3 checking the picks in {}", picks.display()));
+    let mut timings: Vec<(String, f64)> = Vec::new();
+    let t = Instant::now();
+    say(&format!("1/5 checking the picks in {}", picks.display()));
     let survey = survey::read_picks(&picks).map_err(|e| anyhow::anyhow!("{e}"))?;
-    let report = qc::check(&survey, &QcSettings::default());
-    let text = report.to_text(&picks.display().to_string());
+    let qc_report = qc::check(&survey, &QcSettings::default());
+    let text = qc_report.to_text(&picks.display().to_string());
     print!("{text}");
     write_atomic(&out.join("check.txt"), text.as_bytes())?;
     write_atomic(
         &out.join("check.json"),
-        serde_json::to_string_pretty(&report)?.as_bytes(),
+        serde_json::to_string_pretty(&qc_report)?.as_bytes(),
     )?;
-    let pinn_dir = out.join("pinn");
-    say(&format!(
-        "2/3 PINN inversion and refinement against fast marching into {} (about a minute on 2 cores)",
-        pinn_dir.display()
-    ));
+    timings.push(("pick check".into(), t.elapsed().as_secs_f64()));
     let mut settings = RunSettings::default();
     if let Some(steps) = a.steps {
         settings.pinn.steps = steps;
     }
-    let inv = invert::run(
-        survey.clone(),
-        &picks,
-        &pinn_dir,
-        &settings,
-        inversion::Resume::default(),
-        invert::interactive(),
-    )?;
-    print!("\n{}", inv.report.summary_text(&pinn_dir));
-    say("3/3 comparing with the site's true model (known only because the demo is synthetic)");
+    settings.ensemble.members = members;
+    let mut runs = Vec::new();
+    for (k, method) in [crate::settings::Method::Pinn, crate::settings::Method::Grid]
+        .into_iter()
+        .enumerate()
+    {
+        let t = Instant::now();
+        let run_dir = out.join(method.name());
+        say(&format!(
+            "{}/5 {} into {}{}",
+            k + 2,
+            match method {
+                crate::settings::Method::Pinn => "PINN inversion, refinement against fast marching",
+                crate::settings::Method::Grid => "grid tomography",
+            },
+            run_dir.display(),
+            match (members, method) {
+                (0, _) => String::new(),
+                (n, crate::settings::Method::Pinn) =>
+                    format!(", then an ensemble of {} members", (n / 2).max(2)),
+                (n, _) => format!(", then an ensemble of {n} members"),
+            }
+        ));
+        let mut s = RunSettings {
+            method,
+            ..settings.clone()
+        };
+        if method == crate::settings::Method::Pinn && members > 0 {
+            s.ensemble.members = (members / 2).max(2);
+        }
+        let r = invert::run(
+            survey.clone(),
+            &picks,
+            &run_dir,
+            &s,
+            inversion::Resume::default(),
+            invert::interactive(),
+            Some(&qc_report),
+        )?;
+        print!("\n{}", r.report.summary_text(&run_dir));
+        let main_s = r.inversion.seconds;
+        let ens_s = r.inversion.ensemble.as_ref().map_or(0.0, |e| e.seconds);
+        timings.push((format!("{} inversion", method.name()), main_s));
+        if let Some(e) = &r.inversion.ensemble {
+            timings.push((
+                format!("{} ensemble ({} members)", method.name(), e.members.len()),
+                ens_s,
+            ));
+        }
+        timings.push((
+            format!("{} judge of the mean, figures, files", method.name()),
+            (t.elapsed().as_secs_f64() - main_s - ens_s).max(0.0),
+        ));
+        runs.push(r);
+    }
+    let t = Instant::now();
+    say("5/5 comparing both with the site's true model (known only because the demo is synthetic)");
     let truth = crate::model::VelocityGrid::read(&dir.join("true-model.csv"))
         .map_err(|e| anyhow::anyhow!("{e}"))?;
-    let (est, covered) = (&inv.inversion.model, &inv.inversion.coverage.covered);
-    let err = crate::compare::against_truth(
-        est,
-        &truth,
-        covered,
-        &survey.surface,
-        settings.interface_mps,
-    );
-    let cmp = format!(
-        "against the true model, ray-covered zone ({} nodes): median velocity error {:.1} %, 90th percentile {:.1} %\n\
-         depth to {:.0} m/s over {} columns: mean error {}, largest {}\n",
-        err.nodes,
-        err.median_pct,
-        err.p90_pct,
-        settings.interface_mps,
-        err.interface_columns,
-        err.interface_mean_abs_m.map_or("-".into(), |v| format!("{v:.2} m")),
-        err.interface_max_abs_m.map_or("-".into(), |v| format!("{v:.2} m")),
-    );
-    print!("{cmp}");
-    write_atomic(
-        &out.join("truth-comparison.json"),
-        serde_json::to_string_pretty(&err)?.as_bytes(),
-    )?;
-    // the true section beside the estimate, on the same colour scale
-    let receivers = survey.receivers();
-    let sources: Vec<crate::survey::Point> = survey.shots.iter().map(|s| s.source).collect();
-    let t_on = truth.resample(est.spec, Some(&survey.surface));
-    let decor = crate::figures::SectionDecor {
-        title: "True model of the demo site".into(),
-        surface: Some(&survey.surface),
-        receivers: &receivers,
-        sources: &sources,
-        covered: Some(covered),
-        v_range: Some(est.range()),
-        footnote: Some("pale: outside the PINN model's ray coverage".into()),
-        ..Default::default()
-    };
-    crate::figures::velocity_section(&out.join("true-velocity"), &t_on, &decor)?;
-    say(&format!(
-        "done: open {} and {}",
-        pinn_dir.join("report.html").display(),
-        out.join("true-velocity.png").display()
+    let problem = &runs[0].problem;
+    let entries: Vec<crate::compare::Entry> = runs
+        .iter()
+        .map(|r| crate::compare::Entry {
+            name: r.inversion.method.name().to_string(),
+            label: r.inversion.label.clone(),
+            model: r.inversion.model.clone(),
+            // the inversion's own time (with its judge), not its ensemble's
+            runtime_s: Some(r.inversion.seconds),
+        })
+        .collect();
+    let cmp = crate::compare::compare(problem, &entries, Some(&truth), settings.interface_mps)
+        .map_err(|e| anyhow::anyhow!("{e}"))?;
+    let cmp_dir = out.join("comparison");
+    std::fs::create_dir_all(&cmp_dir)
+        .with_context(|| format!("cannot create {}", cmp_dir.display()))?;
+    write_atomic(&cmp_dir.join("comparison.csv"), &crate::compare::csv(&cmp)?)?;
+    crate::report::comparison::write(&cmp_dir, problem, &cmp, &picks.display().to_string())?;
+    print!("\n{}", crate::compare::table_text(&cmp));
+    timings.push((
+        "comparison with the truth".into(),
+        t.elapsed().as_secs_f64(),
     ));
+    let total = t_all.elapsed().as_secs_f64();
+    let page = crate::report::demo_page(
+        &runs.iter().map(|r| &r.report).collect::<Vec<_>>(),
+        &runs
+            .iter()
+            .map(|r| out.join(r.inversion.method.name()))
+            .collect::<Vec<_>>(),
+        &cmp,
+        &cmp_dir,
+        &timings,
+        total,
+    );
+    let report = out.join("report.html");
+    write_atomic(&report, page.as_bytes())?;
     println!("\n{}", crate::report::CAUTION);
+    say(&format!(
+        "done in {total:.0} s; the report: {}",
+        report.display()
+    ));
+    println!("{}", report.display());
     Ok(ExitCode::SUCCESS)
 }

@@ -369,7 +369,7 @@ impl VelocityGrid {
 }
 
 /// Coordinates print with up to 4 decimals and no trailing zeros.
-fn fmt_coord(v: f64) -> String {
+pub fn fmt_coord(v: f64) -> String {
     let s = format!("{v:.4}");
     let s = s.trim_end_matches('0').trim_end_matches('.');
     if s == "-0" {

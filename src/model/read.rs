@@ -43,7 +43,7 @@ impl VelocityGrid {
                 .hint("add the header line 'x,z,velocity_mps' and one line per node")
                 .into());
         };
-        let map = header_map(path, *hline, header, &["x", "z", "velocity_mps"])?;
+        let map = header_map(path, *hline, header, &["x", "z", "velocity_mps", "covered"])?;
         for req in ["x", "z", "velocity_mps"] {
             if !map.contains_key(req) {
                 return Err(InputError::at(
@@ -260,7 +260,7 @@ fn plain_nodes(path: &Path, text: &str) -> Option<Vec<NodeLine>> {
     if header.len() != 3 {
         return None;
     }
-    let map = header_map(path, 1, &header, &["x", "z", "velocity_mps"]).ok()?;
+    let map = header_map(path, 1, &header, &["x", "z", "velocity_mps", "covered"]).ok()?;
     let cols = (*map.get("x")?, *map.get("z")?, *map.get("velocity_mps")?);
     // The node lines in pieces cut at line ends, read in parallel; each piece's
     // lines are numbered from 0 and shifted once all are read.

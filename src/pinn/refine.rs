@@ -71,7 +71,11 @@ pub struct RefineOutcome {
 /// further; a state beyond the iterations asked for is not used) and the algorithm.
 fn state_fingerprint(model: &TrainedModel, grid: &GridSpec, settings: &RefineSettings) -> u64 {
     let mut fnv = Fnv::new();
-    for x in &model.vel {
+    for x in model
+        .vel
+        .iter()
+        .chain(model.detail.iter().flat_map(|d| &d.params))
+    {
         fnv.eat(&x.to_bits().to_le_bytes());
     }
     fnv.eat_f64s(&[grid.x0, grid.z0, grid.dx, grid.dz]);
@@ -126,8 +130,13 @@ pub fn refine(
         })
         .map(|(p, _)| *p)
         .collect();
+    // a model refined before (an ensemble member starting from the main result)
+    // continues with its own detail network; a trained one gets a fresh one
     let detail = (settings.detail_features > 0).then(|| {
-        let d = Detail::new(&model.domain, settings, &model.settings);
+        let d = match &model.detail {
+            Some(d) => d.clone(),
+            _ => Detail::new(&model.domain, settings, &model.settings),
+        };
         let b = d.batch(&model.domain, points);
         let br = d.batch(&model.domain, &lattice);
         (d, b, br)

@@ -109,7 +109,8 @@ fn embedded(dir: &Path, name: &str) -> anyhow::Result<String> {
     ))
 }
 
-fn page(dir: &Path, cmp: &Comparison, picks: &str, reference: &str) -> anyhow::Result<String> {
+/// The table's rows, one per model (truth first), as HTML.
+pub(crate) fn table_rows(cmp: &Comparison) -> String {
     let opt = |v: Option<f64>, d: usize| v.map_or("–".to_string(), |v| format!("{v:.d$}"));
     let mut rows = String::new();
     for r in &cmp.rows {
@@ -127,6 +128,20 @@ fn page(dir: &Path, cmp: &Comparison, picks: &str, reference: &str) -> anyhow::R
             escape(&r.label)
         );
     }
+    rows
+}
+
+/// The comparison table with its header.
+pub(crate) fn table(cmp: &Comparison) -> String {
+    format!(
+        "<table><tr><th class=\"l\">method</th><th>RMS (ms)</th><th>χ²</th><th>run time (s)</th><th>median error (%)</th><th>90th pct error (%)</th><th>depth error of {iso:.0} m/s (m)</th><th>ray coverage (%)</th><th>picks</th><th class=\"l\">what ran</th></tr>\n{rows}</table>",
+        iso = cmp.iso_velocity_mps,
+        rows = table_rows(cmp)
+    )
+}
+
+fn page(dir: &Path, cmp: &Comparison, picks: &str, reference: &str) -> anyhow::Result<String> {
+    let rows = table_rows(cmp);
     let truth_note = if cmp.truth.is_some() {
         format!(
             "The <b>truth</b> row is the true model judged like the others: its χ² is the floor the picks' noise sets. Model errors are |v − v<sub>true</sub>| / v<sub>true</sub> over the {:.0} % of the section that the rays of every model and of the truth reach; the depth error is the mean |depth − true depth| of {:.0} m/s over the columns where both reach it there.",

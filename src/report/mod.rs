@@ -3,6 +3,7 @@
 //! and the figures. Built from an [`Inversion`] and its [`Problem`]; no solver here.
 
 pub mod comparison;
+mod demo;
 pub(crate) mod html;
 
 use std::path::Path;
@@ -20,6 +21,7 @@ use crate::settings::RunSettings;
 use crate::start::StartFit;
 use crate::survey::{Point, Survey};
 
+pub use demo::demo_page;
 pub use html::html_report;
 
 /// The usual cautions, carried by every report.
@@ -55,30 +57,184 @@ pub struct RefineSummary {
     pub resumed_from: Option<usize>,
 }
 
+/// What a column of the section says about the chosen velocity.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum IsoStatus {
+    /// The velocity is reached at a node the rays cover.
+    Reached,
+    /// The rays cover part of the column, and the velocity is not reached there.
+    NotReachedInCoveredPart,
+    /// No ray reaches the column: nothing is said.
+    NoRayCoverage,
+}
+
+impl IsoStatus {
+    /// The word in `iso-depth.csv`.
+    pub fn word(self) -> &'static str {
+        match self {
+            IsoStatus::Reached => "reached",
+            IsoStatus::NotReachedInCoveredPart => "not_reached_in_covered_part",
+            IsoStatus::NoRayCoverage => "no_ray_coverage",
+        }
+    }
+}
+
+/// One column's depth to the chosen velocity.
+#[derive(Debug, Clone, Serialize)]
+pub struct IsoColumn {
+    /// Position along the line, m.
+    pub x: f64,
+    /// Ground elevation, m.
+    pub ground_m: f64,
+    /// What the column says.
+    pub status: IsoStatus,
+    /// Depth below the ground where the model first reaches the velocity, m.
+    pub depth_m: Option<f64>,
+    /// Its elevation, m.
+    pub elevation_m: Option<f64>,
+    /// The members' 16th percentile of that depth (upper edge of the 68 % band), m.
+    pub depth_p16_m: Option<f64>,
+    /// The members' 84th percentile (lower edge); `None` when more than 16 % of the
+    /// members do not reach the velocity at all (the band is open below).
+    pub depth_p84_m: Option<f64>,
+    /// Members that reach the velocity in the column (given where the rays reach the
+    /// column).
+    pub members_reaching: Option<usize>,
+}
+
 /// Depth to one velocity along the line.
 #[derive(Debug, Clone, Serialize)]
 pub struct IsoDepth {
     /// The velocity, m/s.
     pub velocity_mps: f64,
+    /// Where the value came from ("given", or the default setting).
+    pub source: String,
     /// (x, depth below the ground) where the model reaches it within the ray coverage, m.
     pub points: Vec<[f64; 2]>,
+    /// Every column of the section.
+    pub columns: Vec<IsoColumn>,
+    /// Columns the rays reach / of them, columns where the velocity is reached.
+    pub covered_columns: usize,
+    /// Columns where the velocity is reached in the covered part.
+    pub reached_columns: usize,
+    /// Median width of the 68 % band where it is closed, m.
+    pub band_median_width_m: Option<f64>,
+}
+
+/// The `q` quantile of sorted depths where `INFINITY` stands for "not reached":
+/// linear between order statistics, `None` when it falls on an unreached member.
+fn quantile_open(sorted: &[f64], q: f64) -> Option<f64> {
+    if sorted.is_empty() {
+        return None;
+    }
+    let pos = q * (sorted.len() - 1) as f64;
+    let (lo, hi) = (pos.floor() as usize, pos.ceil() as usize);
+    let (a, b) = (sorted[lo], sorted[hi]);
+    (a.is_finite() && b.is_finite()).then_some(a + (b - a) * (pos - lo as f64))
 }
 
 impl IsoDepth {
     /// Depth to `v` in every column of `model` where the rays reach it
-    /// ([`VelocityGrid::depth_to`]).
-    pub fn of(model: &VelocityGrid, covered: &[bool], survey: &Survey, v: f64) -> IsoDepth {
+    /// ([`VelocityGrid::depth_to`], the rays of `covered`), and the 68 % band of
+    /// `members` (each judged on the same coverage).
+    pub fn of(
+        model: &VelocityGrid,
+        covered: &[bool],
+        survey: &Survey,
+        v: f64,
+        source: &str,
+        members: &[&VelocityGrid],
+    ) -> IsoDepth {
         let s = &model.spec;
+        let mut columns = Vec::with_capacity(s.nx);
+        for i in 0..s.nx {
+            let x = s.x(i);
+            let ground_m = survey.surface.elevation(x);
+            let any_covered = (0..s.nz).any(|j| {
+                let k = s.idx(i, j);
+                !model.is_air(k) && covered[k]
+            });
+            let depth_m = model.depth_to(i, v, &survey.surface, Some(covered));
+            let status = match (any_covered, depth_m) {
+                (false, _) => IsoStatus::NoRayCoverage,
+                (true, Some(_)) => IsoStatus::Reached,
+                (true, None) => IsoStatus::NotReachedInCoveredPart,
+            };
+            let (mut p16, mut p84, mut reaching) = (None, None, None);
+            if !members.is_empty() && any_covered {
+                let mut d: Vec<f64> = members
+                    .iter()
+                    // a member's own depth, wherever it lies: the mask is the main
+                    // model's, and a member's crossing a little below it is still
+                    // where that member puts the velocity
+                    .map(|m| {
+                        m.depth_to(i, v, &survey.surface, None)
+                            .unwrap_or(f64::INFINITY)
+                    })
+                    .collect();
+                d.sort_by(f64::total_cmp);
+                reaching = Some(d.iter().filter(|x| x.is_finite()).count());
+                p16 = quantile_open(&d, 0.16);
+                p84 = quantile_open(&d, 0.84);
+            }
+            columns.push(IsoColumn {
+                x,
+                ground_m,
+                status,
+                depth_m,
+                elevation_m: depth_m.map(|d| ground_m - d),
+                depth_p16_m: p16,
+                depth_p84_m: p84,
+                members_reaching: reaching,
+            });
+        }
+        let mut widths: Vec<f64> = columns
+            .iter()
+            .filter_map(|c| Some(c.depth_p84_m? - c.depth_p16_m?))
+            .collect();
         IsoDepth {
             velocity_mps: v,
-            points: (0..s.nx)
-                .filter_map(|i| {
-                    model
-                        .depth_to(i, v, &survey.surface, Some(covered))
-                        .map(|d| [s.x(i), d])
-                })
+            source: source.to_string(),
+            points: columns
+                .iter()
+                .filter_map(|c| Some([c.x, c.depth_m?]))
                 .collect(),
+            covered_columns: columns
+                .iter()
+                .filter(|c| c.status != IsoStatus::NoRayCoverage)
+                .count(),
+            reached_columns: columns
+                .iter()
+                .filter(|c| c.status == IsoStatus::Reached)
+                .count(),
+            band_median_width_m: crate::stats::median(&mut widths),
+            columns,
         }
+    }
+
+    /// `iso-depth.csv`: one line per column, a header and nothing else; empty fields
+    /// where a column has no value, its `status` saying why.
+    pub fn csv(&self) -> String {
+        let mut out = String::from(
+            "x,ground_elevation_m,velocity_mps,status,depth_m,elevation_m,depth_p16_m,depth_p84_m,members_reaching\n",
+        );
+        let f = |v: Option<f64>| v.map_or(String::new(), |v| format!("{v:.3}"));
+        for c in &self.columns {
+            out.push_str(&format!(
+                "{:.3},{:.3},{},{},{},{},{},{},{}\n",
+                c.x,
+                c.ground_m,
+                self.velocity_mps,
+                c.status.word(),
+                f(c.depth_m),
+                f(c.elevation_m),
+                f(c.depth_p16_m),
+                f(c.depth_p84_m),
+                c.members_reaching.map_or(String::new(), |n| n.to_string())
+            ));
+        }
+        out
     }
 }
 
@@ -116,6 +272,12 @@ pub struct InvertReport {
     pub coverage: Coverage,
     /// Depth of the chosen velocity along the line where the rays reach it.
     pub iso_depth: IsoDepth,
+    /// The ensemble, when one ran.
+    pub ensemble: Option<EnsembleSummary>,
+    /// The velocities of the ray-covered section (the only part any statistic uses).
+    pub section: SectionStats,
+    /// The picks' quality control, when it ran with the inversion.
+    pub qc: Option<QcSummary>,
     /// Wall-clock seconds of this invocation.
     pub run_seconds: f64,
     /// Settings as given (also settings.toml: a repeat derives the open values
@@ -130,6 +292,158 @@ pub struct InvertReport {
     pub notes: Vec<String>,
     /// Cautions.
     pub caution: &'static str,
+    /// Every caution, one by one.
+    pub cautions: Vec<&'static str>,
+}
+
+/// The cautions every report carries (common practice of refraction reporting).
+pub const CAUTIONS: [&str; 6] = [
+    "Non-uniqueness: many velocity sections fit the same first arrivals within their uncertainty; this one is shaped by the method's regularisation and settings. The ensemble spread shows part of that freedom, not all of it.",
+    "Hidden layers: a layer slower than the one above it (a velocity inversion), or one too thin to carry a first arrival, is invisible to first-arrival tomography; its depth and the depths below it can be wrong without any misfit showing.",
+    "Resolution falls with depth and towards the ends of the line: features smaller than about the geophone spacing near the surface, and much larger ones at depth, are not resolved. Ground no ray reaches (hatched) is the starting model or the regulariser, not a measurement.",
+    "Depths to a chosen velocity are model depths: the velocity at which material becomes rippable, excavatable or competent is a matter of local experience and must be calibrated.",
+    "Confirm with boreholes, test pits or other direct observation before relying on any depth or velocity from this report.",
+    "Decisions on excavation, foundations, slopes or other works rest with a licensed engineer or geologist under the codes and standards that apply locally; this report is an input to that judgement, not a substitute for it.",
+];
+
+/// The ensemble in short.
+#[derive(Debug, Clone, Serialize)]
+pub struct EnsembleSummary {
+    /// Members.
+    pub members: usize,
+    /// Where PINN members started ("cold" or "warm"; grid members always start from
+    /// the starting model).
+    pub start: crate::settings::MemberStart,
+    /// Members run at once.
+    pub parallel: usize,
+    /// Wall-clock seconds of the members.
+    pub seconds: f64,
+    /// Members per minute of wall-clock time.
+    pub members_per_minute: f64,
+    /// Each member's seed.
+    pub seeds: Vec<u64>,
+    /// Each member's χ² against its own redrawn picks (inversion grid).
+    pub member_chi2: Vec<f64>,
+    /// Median spread (1σ) over the ray-covered nodes, m/s.
+    pub spread_covered_median_mps: Option<f64>,
+    /// The same as a percentage of the mean velocity.
+    pub spread_covered_median_pct: Option<f64>,
+    /// Median spread over the nodes no ray reaches, m/s (not part of any other
+    /// statistic; shown so that the contrast can be seen).
+    pub spread_uncovered_median_mps: Option<f64>,
+    /// The judge's misfit of the members' mean (velocity_mean.csv).
+    pub mean_judge: crate::verify::Misfit,
+}
+
+/// Velocities of the ray-covered nodes.
+#[derive(Debug, Clone, Serialize)]
+pub struct SectionStats {
+    /// Covered ground nodes.
+    pub covered_nodes: usize,
+    /// Lowest, median and highest velocity of the covered nodes, m/s.
+    pub covered_velocity_mps: Option<[f64; 3]>,
+}
+
+impl SectionStats {
+    fn of(model: &VelocityGrid, covered: &[bool]) -> SectionStats {
+        let mut v: Vec<f64> = (0..model.v.len())
+            .filter(|&k| covered[k] && !model.is_air(k))
+            .map(|k| model.v[k])
+            .collect();
+        let n = v.len();
+        let lo = v.iter().copied().fold(f64::INFINITY, f64::min);
+        let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        SectionStats {
+            covered_nodes: n,
+            covered_velocity_mps: crate::stats::median(&mut v).map(|m| [lo, m, hi]),
+        }
+    }
+}
+
+/// The picks' quality control in short (`check` has it in full).
+#[derive(Debug, Clone, Serialize)]
+pub struct QcSummary {
+    /// Distinct receiver positions.
+    pub receivers: usize,
+    /// Source–receiver distance, smallest and largest, m.
+    pub offset_range_m: [f64; 2],
+    /// Reciprocal pairs found.
+    pub reciprocal_pairs: usize,
+    /// Their mean |mismatch|, ms.
+    pub reciprocal_mean_ms: Option<f64>,
+    /// Pairs beyond the tolerance.
+    pub reciprocal_beyond_tolerance: usize,
+    /// Picks far from their shot's trend.
+    pub outliers: usize,
+    /// The findings in words.
+    pub findings: Vec<String>,
+}
+
+impl QcSummary {
+    /// The summary of a `check` report.
+    pub fn of(q: &crate::qc::QcReport) -> QcSummary {
+        let mut findings = Vec::new();
+        findings.push(match (q.reciprocal_pairs, q.reciprocal_mean_ms) {
+            (0, _) | (_, None) => "no reciprocal pairs to compare".to_string(),
+            (n, Some(m)) => format!(
+                "{n} reciprocal pairs, mean mismatch {m:.2} ms, {} beyond the tolerance",
+                q.reciprocal_beyond_tolerance.len()
+            ),
+        });
+        findings.push(if q.outliers.is_empty() {
+            "no pick stands out from its shot's trend".to_string()
+        } else {
+            format!(
+                "{} picks stand out from their shot's trend (run `slowfield check` for the list)",
+                q.outliers.len()
+            )
+        });
+        findings.extend(q.warnings.iter().cloned());
+        QcSummary {
+            receivers: q.receivers,
+            offset_range_m: q.offset_range_m,
+            reciprocal_pairs: q.reciprocal_pairs,
+            reciprocal_mean_ms: q.reciprocal_mean_ms,
+            reciprocal_beyond_tolerance: q.reciprocal_beyond_tolerance.len(),
+            outliers: q.outliers.len(),
+            findings,
+        }
+    }
+}
+
+impl EnsembleSummary {
+    fn of(
+        e: &crate::inversion::ensemble::EnsembleResult,
+        model: &VelocityGrid,
+        covered: &[bool],
+    ) -> EnsembleSummary {
+        let pick = |inside: bool, rel: bool| {
+            let mut v: Vec<f64> = (0..model.v.len())
+                .filter(|&k| covered[k] == inside && !model.is_air(k))
+                .map(|k| {
+                    if rel {
+                        100.0 * e.spread.v[k] / model.v[k]
+                    } else {
+                        e.spread.v[k]
+                    }
+                })
+                .collect();
+            crate::stats::median(&mut v)
+        };
+        EnsembleSummary {
+            members: e.members.len(),
+            start: e.plan.start,
+            parallel: e.plan.parallel,
+            seconds: e.seconds,
+            members_per_minute: e.members.len() as f64 / (e.seconds / 60.0).max(1e-9),
+            seeds: e.members.iter().map(|m| m.seed).collect(),
+            member_chi2: e.members.iter().map(|m| m.chi2).collect(),
+            spread_covered_median_mps: pick(true, false),
+            spread_covered_median_pct: pick(true, true),
+            spread_uncovered_median_mps: pick(false, false),
+            mean_judge: e.mean_judge.misfit,
+        }
+    }
 }
 
 impl InvertReport {
@@ -140,6 +454,7 @@ impl InvertReport {
         settings: &RunSettings,
         inv: &Inversion,
         run_seconds: f64,
+        qc: Option<&crate::qc::QcReport>,
     ) -> InvertReport {
         let pinn = matches!(inv.method, crate::settings::Method::Pinn);
         let refinement = inv
@@ -160,7 +475,7 @@ impl InvertReport {
                     stop: *stop,
                     resumed_from: *resumed_from,
                 }),
-                History::Training { .. } => None,
+                _ => None,
             });
         InvertReport {
             tool: format!("slowfield {}", env!("CARGO_PKG_VERSION")),
@@ -187,7 +502,22 @@ impl InvertReport {
                 &inv.coverage.covered,
                 &problem.survey,
                 settings.interface_mps,
+                if settings.interface_mps == RunSettings::default().interface_mps {
+                    "the default (interface_mps; --iso-velocity sets it)"
+                } else {
+                    "given (interface_mps or --iso-velocity)"
+                },
+                &inv.ensemble
+                    .iter()
+                    .flat_map(|e| e.members.iter().map(|m| &m.model))
+                    .collect::<Vec<_>>(),
             ),
+            ensemble: inv
+                .ensemble
+                .as_ref()
+                .map(|e| EnsembleSummary::of(e, &inv.model, &inv.coverage.covered)),
+            section: SectionStats::of(&inv.model, &inv.coverage.covered),
+            qc: qc.map(QcSummary::of),
             run_seconds,
             settings: settings.clone(),
             derived: inv.choices.clone(),
@@ -200,6 +530,7 @@ impl InvertReport {
                 .collect(),
             notes: inv.notes.clone(),
             caution: CAUTION,
+            cautions: CAUTIONS.to_vec(),
         }
     }
 
@@ -230,7 +561,7 @@ impl InvertReport {
                         stop,
                         ..
                     } => Some((iterations, *kept, *stop)),
-                    History::Training { .. } => None,
+                    _ => None,
                 });
                 let course = course.map_or(String::new(), |(it, kept, stop)| {
                     format!(
@@ -299,6 +630,43 @@ impl InvertReport {
     }
 }
 
+/// `x,z,velocity_mps,covered`: the model with its coverage flag (1: a ray of the
+/// fast-marching check through this model passes within a cell; 0: unconstrained).
+/// Model readers take the file as it is (the flag column is accepted and ignored).
+pub fn model_csv(model: &VelocityGrid, covered: &[bool], column: &str) -> String {
+    let s = &model.spec;
+    let mut out = String::with_capacity(s.len() * 28);
+    out.push_str(&format!("x,z,{column},covered\n"));
+    for j in 0..s.nz {
+        for i in 0..s.nx {
+            let k = s.idx(i, j);
+            let v = model.v[k];
+            if !v.is_nan() {
+                out.push_str(&format!(
+                    "{},{},{:.2},{}\n",
+                    crate::model::fmt_coord(s.x(i)),
+                    crate::model::fmt_coord(s.z(j)),
+                    v,
+                    u8::from(covered[k])
+                ));
+            }
+        }
+    }
+    out
+}
+
+/// The figures of a run, by file stem, in the order the report shows them.
+pub const FIGURES: [&str; 8] = [
+    "velocity",
+    "spread",
+    "coverage",
+    "traveltimes",
+    "residuals",
+    "loss",
+    "refinement",
+    "iterations",
+];
+
 /// Writes every output of a run into `out` (which exists): tables, report, figures.
 pub fn write_run(
     out: &Path,
@@ -313,20 +681,46 @@ pub fn write_run(
         write_atomic(&out.join(name), bytes)
             .with_context(|| format!("cannot write {}", out.join(name).display()))
     };
-    w("velocity.csv", model.to_csv().as_bytes())?;
+    w(
+        "velocity.csv",
+        model_csv(model, covered, "velocity_mps").as_bytes(),
+    )?;
+    if let Some(e) = &inv.ensemble {
+        w(
+            "velocity_std.csv",
+            model_csv(&e.spread, covered, "velocity_std_mps").as_bytes(),
+        )?;
+        std::fs::create_dir_all(out.join("members"))
+            .with_context(|| format!("cannot create {}", out.join("members").display()))?;
+        for m in &e.members {
+            let name = member_file(m.index);
+            if !out.join(&name).exists() {
+                w(&name, m.model.to_csv().as_bytes())?;
+            }
+        }
+        w(
+            "velocity_mean.csv",
+            model_csv(&e.mean, covered, "velocity_mps").as_bytes(),
+        )?;
+        let mut t = String::from("member,seed,chi2_own_picks,seconds,file\n");
+        for m in &e.members {
+            t += &format!(
+                "{},{},{:.4},{:.1},{}\n",
+                m.index,
+                m.seed,
+                m.chi2,
+                m.seconds,
+                member_file(m.index).trim_start_matches("members/")
+            );
+        }
+        w("members/members.csv", t.as_bytes())?;
+    }
     w(
         "coverage.csv",
         coverage_csv(model, &inv.coverage).as_bytes(),
     )?;
     w("fit.csv", &fit_csv(problem, inv)?)?;
-    let mut iface = format!(
-        "x,depth_m\n# depth below ground of {} m/s, covered columns only\n",
-        report.iso_depth.velocity_mps
-    );
-    for p in &report.iso_depth.points {
-        iface.push_str(&format!("{:.3},{:.3}\n", p[0], p[1]));
-    }
-    w("interface-depth.csv", iface.as_bytes())?;
+    w("iso-depth.csv", report.iso_depth.csv().as_bytes())?;
     w("settings.toml", report.settings.to_toml().as_bytes())?;
     w(
         "report.json",
@@ -335,6 +729,25 @@ pub fn write_run(
     // figures
     let receivers = survey.receivers();
     let sources: Vec<Point> = survey.shots.iter().map(|s| s.source).collect();
+    let iso = &report.iso_depth;
+    let line: Vec<(f64, f64)> = iso
+        .columns
+        .iter()
+        .filter_map(|c| Some((c.x, c.elevation_m?)))
+        .collect();
+    let band: Vec<(f64, f64, f64)> = iso
+        .columns
+        .iter()
+        .filter(|c| c.status == IsoStatus::Reached)
+        .filter_map(|c| {
+            Some((
+                c.x,
+                c.ground_m - c.depth_p16_m?,
+                c.ground_m - c.depth_p84_m?,
+            ))
+        })
+        .collect();
+    let iso_label = format!("{:.0} m/s", iso.velocity_mps);
     let decor = SectionDecor {
         title: format!(
             "P-wave velocity ({}); fast-marching check: RMS {:.2} ms, χ² {:.2}",
@@ -344,24 +757,52 @@ pub fn write_run(
         receivers: &receivers,
         sources: &sources,
         covered: Some(covered),
-        footnote: Some("pale: no ray coverage (unconstrained)".into()),
-        interface: Some((
-            report
-                .iso_depth
-                .points
-                .iter()
-                .map(|p| (p[0], survey.surface.elevation(p[0]) - p[1]))
-                .collect(),
-            format!("{:.0} m/s", report.iso_depth.velocity_mps),
+        footnote: Some(format!(
+            "white dashes: depth to {iso_label} where rays reach it"
         )),
+        interface: (!line.is_empty()).then(|| (line.clone(), iso_label.clone())),
+        band: (!band.is_empty()).then(|| band.clone()),
         ..Default::default()
     };
     figures::velocity_section(&out.join("velocity"), model, &decor)?;
+    if let Some(e) = &inv.ensemble {
+        let spread_decor = SectionDecor {
+            title: format!(
+                "Ensemble spread: standard deviation of {} members' velocities",
+                e.members.len()
+            ),
+            surface: Some(&survey.surface),
+            receivers: &receivers,
+            sources: &sources,
+            covered: Some(covered),
+            contours: Some(Vec::new()),
+            footnote: Some(
+                "hatched: no ray coverage; each member inverts the picks redrawn within their σ"
+                    .into(),
+            ),
+            scale: figures::SectionScale::Spread,
+            ..Default::default()
+        };
+        figures::velocity_section(&out.join("spread"), &e.spread, &spread_decor)?;
+    }
     figures::traveltime_curves(
         &out.join("traveltimes"),
         "First arrivals: picks and fast-marching times through the final model",
         &shot_curves(survey, &inv.judge.times),
         report.settings.sigma_ms,
+    )?;
+    let residuals: Vec<f64> = survey
+        .picks
+        .iter()
+        .zip(&inv.judge.times)
+        .map(|(p, t)| (p.time - t) * 1e3)
+        .collect();
+    let sigmas: Vec<f64> = problem.sigma_s.iter().map(|s| s * 1e3).collect();
+    figures::residual_histogram(
+        &out.join("residuals"),
+        "Residuals of the fast-marching check against the picks' σ",
+        &residuals,
+        &sigmas,
     )?;
     for stage in &inv.stages {
         match &stage.history {
@@ -428,6 +869,7 @@ pub fn write_run(
                     &series,
                 )?;
             }
+            History::Ensemble { .. } => {}
         }
     }
     figures::ray_coverage(
@@ -448,8 +890,16 @@ pub fn write_run(
             ),
         },
     )?;
-    w("report.html", html_report(report).as_bytes())?;
+    let page = html_report(report, &|stem| {
+        std::fs::read(out.join(format!("{stem}.png"))).ok()
+    });
+    w("report.html", page.as_bytes())?;
     Ok(())
+}
+
+/// Where member `index` is kept inside a run folder.
+pub fn member_file(index: usize) -> String {
+    format!("members/member-{index:03}.csv")
 }
 
 /// `fit.csv`: every pick with the judge's time and the residual observed − predicted

@@ -63,6 +63,42 @@ pub struct RunSettings {
     pub refine: RefineSettings,
     /// Grid tomography's own settings.
     pub grid: GridSettings,
+    /// The ensemble that measures the section's spread.
+    pub ensemble: EnsembleSettings,
+}
+
+/// Where an ensemble member starts.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum MemberStart {
+    /// From nothing: a PINN member trains its own networks from its own seed.
+    Cold,
+    /// From the main result: a PINN member refines the main run's refined networks
+    /// against its own picks (grid members always start from the starting model).
+    Warm,
+}
+
+/// Randomise-then-optimise ensemble (Bardsley et al. 2014): every member inverts the
+/// picks redrawn within their σ, with its own seed.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct EnsembleSettings {
+    /// Members (0: no ensemble).
+    pub members: usize,
+    /// Where a PINN member starts.
+    pub start: MemberStart,
+    /// Members run at once (0: as many as the cores).
+    pub parallel: usize,
+}
+
+impl Default for EnsembleSettings {
+    fn default() -> Self {
+        EnsembleSettings {
+            members: 0,
+            start: MemberStart::Cold,
+            parallel: 0,
+        }
+    }
 }
 
 impl Default for RunSettings {
@@ -78,6 +114,7 @@ impl Default for RunSettings {
             pinn: PinnSettings::default(),
             refine: RefineSettings::default(),
             grid: GridSettings::default(),
+            ensemble: EnsembleSettings::default(),
         }
     }
 }
@@ -174,6 +211,11 @@ impl RunSettings {
                     self.v_min.map_or(String::new(), |m| format!(" = {m} m/s"))
                 ));
             }
+        }
+        if self.ensemble.members == 1 {
+            return Err(
+                "[ensemble] members = 1: an ensemble needs at least 2 members to have a spread (8 to 16 give a usable one); 0 switches it off".into(),
+            );
         }
         if !(self.interface_mps.is_finite() && self.interface_mps > 0.0) {
             return Err(format!(
