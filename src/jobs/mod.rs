@@ -9,6 +9,7 @@ use std::time::Instant;
 use anyhow::Context;
 
 pub mod compare;
+mod ensemble;
 pub mod invert;
 pub use compare::{compare, CompareRequest};
 pub use invert::{invert, InvertRequest, Overrides};

@@ -17,7 +17,7 @@ table{border-collapse:collapse;margin:.6em 0}th,td{text-align:left;padding:.2em 
 td.n,th.n{text-align:right}figure{margin:1em 0}figure img{max-width:100%;border:1px solid #ddd}\
 figcaption{font-size:.92em;color:#333;margin-top:.3em}.caution{border:2px solid #b33;padding:.6em 1em;background:#fff4f4}\
 .warn{border-left:4px solid #c80;padding-left:.8em}.small{font-size:.85em;color:#555}\
-@media print{body{max-width:none;margin:0;font-size:10.5pt}section{break-before:page;page-break-before:always}\
+@media print{body{max-width:none;margin:0;font-size:9.5pt}figure img{max-height:135mm;width:auto;max-width:100%}section{break-before:page;page-break-before:always}\
 section.first{break-before:auto;page-break-before:auto}.method{break-before:page;page-break-before:always}figure,table,.caution{break-inside:avoid;page-break-inside:avoid}\
 h2{break-after:avoid;page-break-after:avoid}a{color:inherit;text-decoration:none}}\
 @page{size:A4 landscape;margin:12mm}";
