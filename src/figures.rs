@@ -1283,28 +1283,23 @@ pub fn residual_histogram(
             .label_style(("sans-serif", 15))
             .axis_desc_style(("sans-serif", 16))
             .draw()?;
+        // (left edge, count) of every bar drawn
+        let bars: Vec<(f64, f64)> = counts
+            .iter()
+            .enumerate()
+            .filter(|c| *c.1 > 0)
+            .map(|(b, &c)| (-RESIDUAL_LIMIT + b as f64 * RESIDUAL_BIN, c as f64))
+            .collect();
         ch.draw_series(
-            counts
-                .iter()
-                .enumerate()
-                .filter(|c| *c.1 > 0)
-                .map(|(b, &c)| {
-                    let x = -RESIDUAL_LIMIT + b as f64 * RESIDUAL_BIN;
-                    Rectangle::new([(x, 0.0), (x + RESIDUAL_BIN, c as f64)], bar.filled())
-                }),
+            bars.iter()
+                .map(|&(x, c)| Rectangle::new([(x, 0.0), (x + RESIDUAL_BIN, c)], bar.filled())),
         )?
         .label("picks, bins 0.25 σ wide")
         .legend(move |(x, y)| Rectangle::new([(x, y - 6), (x + 20, y + 6)], bar.filled()));
         // thin white gaps between neighbouring bars
         ch.draw_series(
-            counts
-                .iter()
-                .enumerate()
-                .filter(|c| *c.1 > 0)
-                .map(|(b, &c)| {
-                    let x = -RESIDUAL_LIMIT + b as f64 * RESIDUAL_BIN;
-                    PathElement::new(vec![(x, 0.0), (x, c as f64)], WHITE.stroke_width(1))
-                }),
+            bars.iter()
+                .map(|&(x, c)| PathElement::new(vec![(x, 0.0), (x, c)], WHITE.stroke_width(1))),
         )?;
         let curve = if n > 0 { curve.as_slice() } else { &[] };
         ch.draw_series(LineSeries::new(

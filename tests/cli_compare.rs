@@ -115,42 +115,7 @@ fn comparison_misfits_agree_with_independent_solvers() {
 #[test]
 fn a_known_two_layer_depth_is_found_to_under_a_cell() {
     let d = tempfile::tempdir().unwrap();
-    let mut model = String::from("x,z,velocity_mps\n");
-    for i in 0..=100 {
-        for j in 0..=60 {
-            let (x, z) = (0.5 * i as f64 - 2.0, -0.5 * j as f64);
-            let v = if z > -5.0 { 600.0 } else { 2200.0 };
-            model.push_str(&format!("{x},{z},{v}\n"));
-        }
-    }
-    std::fs::write(d.path().join("truth.csv"), model).unwrap();
-    let mut geom = String::from("shot,source_x,source_z,receiver_x,receiver_z,time_ms\n");
-    for s in 0..6 {
-        let sx = 8.0 * s as f64 + 4.0;
-        for r in 0..24 {
-            geom.push_str(&format!("S{s},{sx},0,{},0,1\n", 2.0 * r as f64));
-        }
-    }
-    std::fs::write(d.path().join("geometry.csv"), geom).unwrap();
-    let o = run(
-        &[
-            "forward",
-            "--model",
-            "truth.csv",
-            "--picks",
-            "geometry.csv",
-            "--noise-ms",
-            "0.5",
-            "--seed",
-            "7",
-            "--cell",
-            "0.125",
-            "-o",
-            "picks.csv",
-        ],
-        d.path(),
-    );
-    assert!(o.status.success(), "{}", stderr(&o));
+    common::two_layer_site(d.path());
     let o = run(
         &[
             "compare",

@@ -134,3 +134,45 @@ pub fn slowfield(args: &[&str], dir: &std::path::Path) -> std::process::Output {
     );
     out
 }
+
+/// 600 m/s over 2200 m/s, the interface 5 m deep (the truth), and synthetic picks
+/// through it by `forward` on a 0.125 m grid with 0.5 ms of noise: 6 shots, 24
+/// receivers 2 m apart.
+pub fn two_layer_site(d: &std::path::Path) {
+    let mut model = String::from("x,z,velocity_mps\n");
+    for i in 0..=100 {
+        for j in 0..=60 {
+            let (x, z) = (0.5 * i as f64 - 2.0, -0.5 * j as f64);
+            let v = if z > -5.0 { 600.0 } else { 2200.0 };
+            model.push_str(&format!("{x},{z},{v}\n"));
+        }
+    }
+    std::fs::write(d.join("truth.csv"), model).unwrap();
+    let mut geom = String::from("shot,source_x,source_z,receiver_x,receiver_z,time_ms\n");
+    for s in 0..6 {
+        let sx = 8.0 * s as f64 + 4.0;
+        for r in 0..24 {
+            geom.push_str(&format!("S{s},{sx},0,{},0,1\n", 2.0 * r as f64));
+        }
+    }
+    std::fs::write(d.join("geometry.csv"), geom).unwrap();
+    let o = slowfield(
+        &[
+            "forward",
+            "--model",
+            "truth.csv",
+            "--picks",
+            "geometry.csv",
+            "--noise-ms",
+            "0.5",
+            "--seed",
+            "7",
+            "--cell",
+            "0.125",
+            "-o",
+            "picks.csv",
+        ],
+        d,
+    );
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+}
