@@ -28,7 +28,8 @@ pub(super) fn plan(settings: &RunSettings) -> Option<ensemble::Plan> {
 }
 
 /// Memory a member run may take at its peak besides what the process holds already
-/// (the demo's PINN run peaks at about 0.3 GB; twice that, and more on larger grids).
+/// (the demo with two PINN members at once peaks at 0.65–0.72 GB for the whole process;
+/// 600 MB a member, and more on larger grids).
 fn runner_bytes(problem: &Problem) -> u64 {
     (600u64 << 20).max(problem.grid.len() as u64 * 4096)
 }

@@ -777,7 +777,7 @@ pub fn write_run(
             covered: Some(covered),
             contours: Some(Vec::new()),
             footnote: Some(
-                "hatched: no ray coverage; each member inverts the picks redrawn within their σ"
+                "each member inverts the picks redrawn within their σ and its own starting model"
                     .into(),
             ),
             scale: figures::SectionScale::Spread,
