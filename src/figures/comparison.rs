@@ -32,7 +32,8 @@ pub struct SideBySide<'a> {
     pub panels: Vec<ModelPanel<'a>>,
     /// What the differences are taken from ("the truth", "pinn").
     pub reference: String,
-    /// Nodes the statistics are taken over; the rest is washed grey in every panel.
+    /// Nodes the statistics are taken over; the rest is washed grey and hatched in every
+    /// panel.
     pub mask: &'a [bool],
     /// Ground surface.
     pub surface: &'a Surface,
@@ -93,7 +94,7 @@ fn panel_geometry(spec: &GridSpec, surface: &Surface, plot_w: f64) -> (f64, f64,
 }
 
 /// Draws every model side by side: velocity on one scale on the left, the difference
-/// from the reference on one symmetric scale on the right, the same grey wash outside
+/// from the reference on one symmetric scale on the right, the same grey wash and hatching outside
 /// the common mask in every panel. The difference scale spans the 95th percentile of
 /// |difference| over the mask (at least ±5 %), so one outlier node does not flatten
 /// the rest.
@@ -168,7 +169,7 @@ where
     let (grid_area, foot) = rest.split_vertically(h - 60 - 40);
     foot.draw(&Text::new(
         format!(
-            "grey wash: ground that not every model's rays reach (left out of every statistic); ▲ receivers  ● shots; right: (model − {r}) / {r}, %",
+            "hatched: ground that not every model's rays reach (left out of every statistic); ▲ receivers  ● shots; right: (model − {r}) / {r}, %",
             r = f.reference
         ),
         (20, 10),
@@ -244,6 +245,8 @@ where
                         ))
                     }),
             )?;
+            // the ground outside the common mask is hatched as in every section
+            super::hatch_nodes(&ch, &s, |k| !f.mask[k] && !p.v[k].is_nan())?;
             let n = 300;
             ch.draw_series(std::iter::once(PathElement::new(
                 (0..=n)

@@ -165,7 +165,7 @@ table{{border-collapse:collapse}}td,th{{padding:.2em .7em;text-align:right;borde
 <table><tr><th class=\"l\">method</th><th>RMS (ms)</th><th>χ²</th><th>run time (s)</th><th>median error (%)</th><th>90th pct error (%)</th><th>depth error of {iso:.0} m/s (m)</th><th>ray coverage (%)</th><th>picks</th><th class=\"l\">what ran</th></tr>\n{rows}</table>\
 <p>{truth_note}</p>{shared_note}\
 <h2>The sections side by side</h2><img src=\"{sections}\" alt=\"every model side by side\">\
-<p>Left: every model on one velocity scale. Right: each model's difference from {reference} in %, blue slower, red faster. The grey wash covers ground that not every model's rays reach; it is left out of every statistic above.</p>\
+<p>Left: every model on one velocity scale. Right: each model's difference from {reference} in %, blue slower, red faster. Hatched ground is ground that not every model's rays reach; it is left out of every statistic above.</p>\
 <h2>Travel-time fits</h2><img src=\"{fits}\" alt=\"travel-time fits of every model\">\
 <p>Grey dots: the picks; lines: each model's first arrivals by the judge; below, each model's residuals against the receiver position, with ±σ. A model whose residuals run in streaks along the line misses a structure there.</p>\
 <p class=\"caution\"><b>Caution.</b> {caution} A comparison on synthetic picks says how the methods behave on that kind of ground; on a real site no method's error is known.</p>\

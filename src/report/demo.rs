@@ -72,7 +72,7 @@ Every model is judged by the same fast-marching solver, never by the method's ow
         sections = embedded(
             read(cmp_dir, "sections"),
             "every model side by side",
-            "<b>The sections side by side.</b> Left: the true model and each method's section on one velocity scale. Right: each section's difference from the truth in %, blue slower, red faster. The grey wash covers ground that not every model's rays reach; it is left out of every statistic above.",
+            "<b>The sections side by side.</b> Left: the true model and each method's section on one velocity scale. Right: each section's difference from the truth in %, blue slower, red faster. Hatched ground is ground that not every model's rays reach; it is left out of every statistic above.",
         ),
         fits = embedded(
             read(cmp_dir, "traveltimes"),
