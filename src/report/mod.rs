@@ -536,6 +536,35 @@ impl InvertReport {
 
     /// The end-of-run summary for the terminal.
     pub fn summary_text(&self, out: &Path) -> String {
+        let ens = self.ensemble.as_ref().map_or(String::new(), |e| {
+            let f = |v: Option<f64>, unit: &str| v.map_or("-".into(), |v| format!("{v:.0}{unit}"));
+            format!(
+                "ensemble of {} members ({:.1} a minute): spread (1 sigma) {} where rays reach ({:.1} %), {} where none do; their mean model: chi2 {:.3} (velocity_mean.csv)\n",
+                e.members,
+                e.members_per_minute,
+                f(e.spread_covered_median_mps, " m/s"),
+                e.spread_covered_median_pct.unwrap_or(f64::NAN),
+                f(e.spread_uncovered_median_mps, " m/s"),
+                e.mean_judge.chi2
+            )
+        });
+        let i = &self.iso_depth;
+        let iso = if i.reached_columns == 0 {
+            format!(
+                "{:.0} m/s is not reached where the rays reach: no depth line (--iso-velocity sets the velocity)\n",
+                i.velocity_mps
+            )
+        } else {
+            format!(
+                "depth to {:.0} m/s in {} of the {} columns the rays reach{} (iso-depth.csv)\n",
+                i.velocity_mps,
+                i.reached_columns,
+                i.covered_columns,
+                i.band_median_width_m.map_or(String::new(), |w| format!(
+                    ", 68 % band {w:.2} m wide (median)"
+                ))
+            )
+        };
         let refined = self.refinement.as_ref().map_or(String::new(), |f| {
             format!(
                 "refinement against fast marching: chi2 {:.3} (PINN velocity) -> {:.3} in {} iterations\n",
@@ -614,7 +643,7 @@ impl InvertReport {
             "{} picks, {} shots; {bounds}{training}{:.1} s\n{refined}\
              fast-marching check on a {} m grid (half the inversion's): RMS {:.3} ms, chi2 {:.3}\n\
              on the inversion's own {} m grid: RMS {:.3} ms, chi2 {:.3}\n{own}\
-             rays cover {:.0} % of the section; results in {}\n",
+             {ens}{iso}rays cover {:.0} % of the section; results in {}\n",
             self.n_picks,
             self.n_shots,
             self.run_seconds,
