@@ -297,8 +297,6 @@ fn bad_ensemble_input_is_refused_with_nothing_written() {
 /// gives, to the members' CSV precision (0.01 m/s: asserted within 0.05 m/s).
 #[test]
 fn a_killed_ensemble_keeps_its_members_and_resumes_to_the_same_spread() {
-    use std::process::Stdio;
-    use std::time::{Duration, Instant};
     let d = tempfile::tempdir().unwrap();
     let d = d.path();
     common::two_layer_site(d);
@@ -311,32 +309,14 @@ fn a_killed_ensemble_keeps_its_members_and_resumes_to_the_same_spread() {
     let args = ["invert", "picks.csv", "--config", "run.toml", "-o"];
     let o = run(&[&args[..], &["whole"]].concat(), d);
     assert!(o.status.success(), "{}", stderr(&o));
-    let mut child = common::bin()
-        .args([&args[..], &["cut"]].concat())
-        .current_dir(d)
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
     let members = d.join(".cut.running/members");
-    let t0 = Instant::now();
-    loop {
-        let done = std::fs::read_dir(&members).map_or(0, |r| {
+    common::kill_when(d, &[&args[..], &["cut"]].concat(), || {
+        std::fs::read_dir(&members).map_or(0, |r| {
             r.flatten()
                 .filter(|e| e.path().extension().is_some_and(|x| x == "json"))
                 .count()
-        });
-        if done >= 3 {
-            child.kill().unwrap();
-            child.wait().unwrap();
-            break;
-        }
-        if let Some(status) = child.try_wait().unwrap() {
-            panic!("the run ended ({status}) before it could be interrupted");
-        }
-        assert!(t0.elapsed() < Duration::from_secs(120), "never ready");
-        std::thread::sleep(Duration::from_millis(2));
-    }
+        }) >= 3
+    });
     let o = run(&["invert", "picks.csv", "--resume", "cut", "-o", "cut"], d);
     assert!(o.status.success(), "{}", stderr(&o));
     assert!(

@@ -7,12 +7,11 @@
 //! refinement.
 
 use std::path::Path;
-use std::process::{Child, Output, Stdio};
-use std::time::{Duration, Instant};
+use std::process::Output;
 
 use slowfield::linearised::OuterState;
 
-use common::{bin, slowfield as run};
+use common::slowfield as run;
 
 mod common;
 
@@ -75,27 +74,12 @@ fn site(d: &Path) {
 
 /// Starts `invert` into `out` and SIGKILLs it as soon as `ready(work folder)` holds.
 fn kill_when(d: &Path, out: &str, ready: impl Fn(&Path) -> bool) {
-    let mut child: Child = bin()
-        .args(["invert", "picks.csv", "--config", "run.toml", "-o", out])
-        .current_dir(d)
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
     let work = d.join(format!(".{out}.running"));
-    let t0 = Instant::now();
-    loop {
-        if ready(&work) {
-            child.kill().unwrap();
-            child.wait().unwrap();
-            return;
-        }
-        if let Some(status) = child.try_wait().unwrap() {
-            panic!("the run ended ({status}) before it could be interrupted");
-        }
-        assert!(t0.elapsed() < Duration::from_secs(120), "never ready");
-        std::thread::sleep(Duration::from_millis(2));
-    }
+    common::kill_when(
+        d,
+        &["invert", "picks.csv", "--config", "run.toml", "-o", out],
+        || ready(&work),
+    );
 }
 
 fn read(d: &Path, path: &str) -> Vec<u8> {

@@ -382,9 +382,23 @@ pub fn run(
     progress: bool,
     qc: Option<&crate::qc::QcReport>,
 ) -> anyhow::Result<Run> {
+    let problem = Problem::new(survey, settings);
+    run_problem(problem, picks, out, settings, resume, progress, qc)
+}
+
+/// [`run`] on a problem already made from the survey and `settings` (its starting
+/// model is fitted once, whoever needs it before the run).
+pub fn run_problem(
+    problem: Problem,
+    picks: &Path,
+    out: &Path,
+    settings: &RunSettings,
+    resume: Resume,
+    progress: bool,
+    qc: Option<&crate::qc::QcReport>,
+) -> anyhow::Result<Run> {
     let t0 = Instant::now();
     let work = work_dir(out)?;
-    let problem = Problem::new(survey, settings);
     let plan = super::ensemble::plan(settings);
     if let Some(plan) = &plan {
         super::ensemble::check_memory(&problem, plan)?;
@@ -580,9 +594,8 @@ pub fn check_output_folder(out: &Path) -> anyhow::Result<()> {
 
 /// Refuses, before any work, a velocity to map that no model within the run's
 /// velocity bounds can reach (or that every model exceeds at once).
-fn check_iso_velocity(survey: &Survey, settings: &RunSettings) -> anyhow::Result<()> {
-    let problem = Problem::new(survey.clone(), settings);
-    let (lo, hi) = inversion::velocity_bounds(&problem, settings);
+fn check_iso_velocity(problem: &Problem, settings: &RunSettings) -> anyhow::Result<()> {
+    let (lo, hi) = inversion::velocity_bounds(problem, settings);
     let v = settings.interface_mps;
     if !(v > lo && v < hi) {
         anyhow::bail!(
@@ -629,14 +642,15 @@ pub fn invert(req: &InvertRequest) -> anyhow::Result<ExitCode> {
     for w in &survey.warnings {
         eprintln!("warning: {w}");
     }
+    let qc = crate::qc::check(&survey, &crate::qc::QcSettings::default());
+    let problem = Problem::new(survey, &settings);
     if req.overrides.iso_velocity.is_some() {
         // a default outside the bounds is not an error: the report says it is not
         // reached and draws no line
-        check_iso_velocity(&survey, &settings)?;
+        check_iso_velocity(&problem, &settings)?;
     }
-    let qc = crate::qc::check(&survey, &crate::qc::QcSettings::default());
-    let r = run(
-        survey,
+    let r = run_problem(
+        problem,
         &req.picks,
         &req.output,
         &settings,

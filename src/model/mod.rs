@@ -324,19 +324,36 @@ impl VelocityGrid {
 
     /// The model as `x,z,velocity_mps` CSV text, air nodes left out.
     pub fn to_csv(&self) -> String {
+        self.to_csv_with("velocity_mps", None)
+    }
+
+    /// The model file with its value column named `column` (`velocity_mps`, or e.g.
+    /// `velocity_std_mps` for a spread) and, when given, the per-node flag `covered`
+    /// (1: a ray passes within a cell) as a fourth column; air nodes left out.
+    pub fn to_csv_with(&self, column: &str, covered: Option<&[bool]>) -> String {
         let s = &self.spec;
-        let mut out = String::with_capacity(s.len() * 24);
-        out.push_str("x,z,velocity_mps\n");
+        let mut out = String::with_capacity(s.len() * 26);
+        out.push_str(&format!("x,z,{column}"));
+        out.push_str(if covered.is_some() {
+            ",covered\n"
+        } else {
+            "\n"
+        });
         for j in 0..s.nz {
             for i in 0..s.nx {
-                let v = self.v[s.idx(i, j)];
+                let k = s.idx(i, j);
+                let v = self.v[k];
                 if !v.is_nan() {
                     out.push_str(&format!(
-                        "{},{},{:.2}\n",
+                        "{},{},{:.2}",
                         fmt_coord(s.x(i)),
                         fmt_coord(s.z(j)),
                         v
                     ));
+                    match covered {
+                        Some(c) => out.push_str(if c[k] { ",1\n" } else { ",0\n" }),
+                        None => out.push('\n'),
+                    }
                 }
             }
         }
@@ -369,7 +386,7 @@ impl VelocityGrid {
 }
 
 /// Coordinates print with up to 4 decimals and no trailing zeros.
-pub fn fmt_coord(v: f64) -> String {
+fn fmt_coord(v: f64) -> String {
     let s = format!("{v:.4}");
     let s = s.trim_end_matches('0').trim_end_matches('.');
     if s == "-0" {

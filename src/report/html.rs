@@ -140,9 +140,8 @@ pub(crate) fn report_body(
         );
     }
     if let Some(e) = &r.ensemble {
-        let mut c = e.member_chi2.clone();
-        c.retain(|x| x.is_finite());
-        let med = crate::stats::median(&mut c.clone());
+        // (the median leaves out NaN: a member whose method has no χ²)
+        let med = crate::stats::median(&mut e.member_chi2.clone());
         t += &row(
             "ensemble",
             format!(
@@ -263,7 +262,7 @@ pub(crate) fn report_body(
         embedded(
             figure("spread"),
             "ensemble spread",
-            "<b>Ensemble spread.</b> The standard deviation of the members' velocities at each node (m/s; darker is looser). Each member inverted the picks redrawn within their σ with its own seed (randomise-then-optimise; Bardsley et al. 2014). Small spread where many rays cross, large where few do or none (hatched). The spread reflects the picks' noise and the method's own randomness only: not the other models the regulariser rules out, nor hidden layers.",
+            "<b>Ensemble spread.</b> The standard deviation of the members' velocities at each node (m/s; darker is looser). Each member inverted the picks redrawn within their σ, with the starting model redrawn by 10 % and its own seed (randomise-then-optimise; Bardsley et al. 2014). Small spread where many rays cross, large where few do or none (hatched). The spread reflects the picks' noise and the method's own randomness only: not the other models the regulariser rules out, nor hidden layers.",
         )
     } else {
         String::new()

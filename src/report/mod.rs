@@ -122,18 +122,6 @@ pub struct IsoDepth {
     pub band_median_width_m: Option<f64>,
 }
 
-/// The `q` quantile of sorted depths where `INFINITY` stands for "not reached":
-/// linear between order statistics, `None` when it falls on an unreached member.
-fn quantile_open(sorted: &[f64], q: f64) -> Option<f64> {
-    if sorted.is_empty() {
-        return None;
-    }
-    let pos = q * (sorted.len() - 1) as f64;
-    let (lo, hi) = (pos.floor() as usize, pos.ceil() as usize);
-    let (a, b) = (sorted[lo], sorted[hi]);
-    (a.is_finite() && b.is_finite()).then_some(a + (b - a) * (pos - lo as f64))
-}
-
 impl IsoDepth {
     /// Depth to `v` in every column of `model` where the rays reach it
     /// ([`VelocityGrid::depth_to`], the rays of `covered`), and the 68 % band of
@@ -173,10 +161,12 @@ impl IsoDepth {
                             .unwrap_or(f64::INFINITY)
                     })
                     .collect();
-                d.sort_by(f64::total_cmp);
                 reaching = Some(d.iter().filter(|x| x.is_finite()).count());
-                p16 = quantile_open(&d, 0.16);
-                p84 = quantile_open(&d, 0.84);
+                // a quantile that falls on (or next to) a member that never reaches
+                // the velocity is infinite or NaN: the band is open there
+                let mut open = |q| crate::stats::quantile(&mut d, q).filter(|x| x.is_finite());
+                p16 = open(0.16);
+                p84 = open(0.84);
             }
             columns.push(IsoColumn {
                 x,
@@ -659,31 +649,6 @@ impl InvertReport {
     }
 }
 
-/// `x,z,velocity_mps,covered`: the model with its coverage flag (1: a ray of the
-/// fast-marching check through this model passes within a cell; 0: unconstrained).
-/// Model readers take the file as it is (the flag column is accepted and ignored).
-pub fn model_csv(model: &VelocityGrid, covered: &[bool], column: &str) -> String {
-    let s = &model.spec;
-    let mut out = String::with_capacity(s.len() * 28);
-    out.push_str(&format!("x,z,{column},covered\n"));
-    for j in 0..s.nz {
-        for i in 0..s.nx {
-            let k = s.idx(i, j);
-            let v = model.v[k];
-            if !v.is_nan() {
-                out.push_str(&format!(
-                    "{},{},{:.2},{}\n",
-                    crate::model::fmt_coord(s.x(i)),
-                    crate::model::fmt_coord(s.z(j)),
-                    v,
-                    u8::from(covered[k])
-                ));
-            }
-        }
-    }
-    out
-}
-
 /// The figures of a run, by file stem, in the order the report shows them.
 pub const FIGURES: [&str; 8] = [
     "velocity",
@@ -712,12 +677,14 @@ pub fn write_run(
     };
     w(
         "velocity.csv",
-        model_csv(model, covered, "velocity_mps").as_bytes(),
+        model.to_csv_with("velocity_mps", Some(covered)).as_bytes(),
     )?;
     if let Some(e) = &inv.ensemble {
         w(
             "velocity_std.csv",
-            model_csv(&e.spread, covered, "velocity_std_mps").as_bytes(),
+            e.spread
+                .to_csv_with("velocity_std_mps", Some(covered))
+                .as_bytes(),
         )?;
         std::fs::create_dir_all(out.join("members"))
             .with_context(|| format!("cannot create {}", out.join("members").display()))?;
@@ -729,7 +696,7 @@ pub fn write_run(
         }
         w(
             "velocity_mean.csv",
-            model_csv(&e.mean, covered, "velocity_mps").as_bytes(),
+            e.mean.to_csv_with("velocity_mps", Some(covered)).as_bytes(),
         )?;
         let mut t = String::from("member,seed,chi2_own_picks,seconds,file\n");
         for m in &e.members {

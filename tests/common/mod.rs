@@ -176,3 +176,31 @@ pub fn two_layer_site(d: &std::path::Path) {
     );
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
 }
+
+/// Starts `slowfield ARGS` in `dir` and SIGKILLs it (what a power cut or an
+/// out-of-memory kill does) as soon as `ready()` holds; panics if the run ends first
+/// or is never ready within two minutes.
+pub fn kill_when(dir: &std::path::Path, args: &[&str], ready: impl Fn() -> bool) {
+    use std::process::Stdio;
+    use std::time::{Duration, Instant};
+    let mut child = bin()
+        .args(args)
+        .current_dir(dir)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let t0 = Instant::now();
+    loop {
+        if ready() {
+            child.kill().unwrap();
+            child.wait().unwrap();
+            return;
+        }
+        if let Some(status) = child.try_wait().unwrap() {
+            panic!("the run ended ({status}) before it could be interrupted");
+        }
+        assert!(t0.elapsed() < Duration::from_secs(120), "never ready");
+        std::thread::sleep(Duration::from_millis(2));
+    }
+}
