@@ -321,11 +321,7 @@ fn export_case(c: &Case, dir: &Path) -> anyhow::Result<()> {
     std::fs::create_dir_all(dir)?;
     let (survey, truth) = case_survey(c)?;
     let times: Vec<f64> = survey.picks.iter().map(|p| p.time).collect();
-    let sigma: Vec<f64> = survey
-        .picks
-        .iter()
-        .map(|p| p.sigma.unwrap_or(SIGMA))
-        .collect();
+    let sigma: Vec<f64> = survey.picks.iter().map(|p| p.sigma_or(SIGMA)).collect();
     std::fs::write(
         dir.join("picks.csv"),
         slowfield::jobs::picks_csv(&survey, &times, Some(&sigma), false)?,
@@ -620,25 +616,17 @@ fn main() -> anyhow::Result<()> {
         return Ok(());
     }
     // --export DIR [case …]: each case's picks and true model as files, for
-    // `slowfield compare` (experiments/compare_sites.sh)
-    if args.first().map(String::as_str) == Some("--export") {
+    // `slowfield compare` (experiments/compare_sites.sh); the cases chosen as below
+    let export = args.first().map(String::as_str) == Some("--export");
+    let (export_dir, args) = if export {
         let dir = PathBuf::from(
             args.get(1)
                 .ok_or_else(|| anyhow::anyhow!("--export needs a folder"))?,
         );
-        let names: Vec<&str> = args[2..].iter().map(String::as_str).collect();
-        for c in cases() {
-            let wanted = if names.is_empty() {
-                DEFAULT_CASES.contains(&c.name)
-            } else {
-                names.contains(&c.name)
-            };
-            if wanted {
-                export_case(&c, &dir.join(c.name))?;
-            }
-        }
-        return Ok(());
-    }
+        (Some(dir), args[2..].to_vec())
+    } else {
+        (None, args)
+    };
     let all = cases();
     let wanted: Vec<&str> = if args.is_empty() {
         DEFAULT_CASES.to_vec()
@@ -655,12 +643,26 @@ fn main() -> anyhow::Result<()> {
             );
         }
     }
+    let skip = |c: &Case| {
+        let missing = c.picks_file.is_some() && c.truth_grid.is_none();
+        if missing {
+            eprintln!("{}: demo-picks/true-model.csv missing, skipped", c.name);
+        }
+        missing
+    };
+    if let Some(dir) = export_dir {
+        for c in all.iter().filter(|c| wanted.contains(&c.name)) {
+            if !skip(c) {
+                export_case(c, &dir.join(c.name))?;
+            }
+        }
+        return Ok(());
+    }
     std::fs::create_dir_all(&root)?;
     let mut table = format!("| site | method | picks | steps | wall s | fmm / rays / LSQR s | peak MB | judge χ² (half cell) | inversion-grid χ² | network χ² | median / p90 v err % (covered) | depth err of {:.0} m/s, m | lens v/beside (true) | warnings | linearised χ² per iteration (* accepted) |\n|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|\n", base.interface_mps);
     print!("{table}");
     for c in all.iter().filter(|c| wanted.contains(&c.name)) {
-        if c.picks_file.is_some() && c.truth_grid.is_none() {
-            eprintln!("{}: demo-picks/true-model.csv missing, skipped", c.name);
+        if skip(c) {
             continue;
         }
         for method in &methods {

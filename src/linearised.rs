@@ -347,9 +347,7 @@ impl OuterState {
         self.predicted = next.predicted_chi2;
         true
     }
-}
 
-impl OuterState {
     /// The outer iteration this state continues with.
     pub fn iteration(&self) -> usize {
         self.iteration

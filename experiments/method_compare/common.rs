@@ -266,7 +266,7 @@ pub fn run_methods(
                 },
                 &mut Silent,
             )?;
-            let mut r = ran(
+            let r = ran(
                 Contender::PinnRefined.name(),
                 &inv,
                 pinn.seconds + inv.seconds,
@@ -278,7 +278,6 @@ pub fn run_methods(
                     pinn.steps
                 );
             }
-            r.steps = pinn.steps;
             eprintln!(
                 "{tag} {:<22} {:>7.1} s  χ² {:.2}  (refinement alone {:.1} s)",
                 r.name, r.seconds, r.chi2, inv.seconds

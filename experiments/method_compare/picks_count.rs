@@ -2,8 +2,8 @@
 //! picks.
 //!
 //! One synthetic site with a refractor and lateral change (`common::Site`: a 120 m
-//! line, 2 m receivers, a rock head undulating 5 ± 1.5 m deep with a trough to about
-//! 9 m at x = 84 m, soil 15 % slower west of x = 40 m). The picks of every shot at
+//! line, 2 m receivers, a rock head undulating 5 ± 1.5 m deep with a trough 4 m deeper
+//! at x = 84 m (10.4 m there), soil 15 % slower west of x = 40 m). The picks of every shot at
 //! every other receiver (4 m) and off both ends to every receiver are made once
 //! (fast marching on 0.125 m, σ = 0.5 ms, seed 7); each data level keeps a subset of
 //! them (every receiver / every 2nd / every 4th; shots every 4, 8, 16 or 32 m, the

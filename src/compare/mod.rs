@@ -230,14 +230,7 @@ pub fn compare(
             };
             // the judge's fine solve only (its second solve, on the model's own grid,
             // says nothing of a truth and costs most on a finely gridded one)
-            let fine = crate::verify::solver_grid(t, &problem.survey.surface, problem.judge_cell_m)
-                .map_err(wrap)?;
-            let times = crate::verify::predict(
-                &problem.survey,
-                &fine,
-                &crate::eikonal::FmmOptions::default(),
-            )
-            .map_err(wrap)?;
+            let times = inversion::judge_times(problem, t).map_err(wrap)?;
             let on_grid = t.resample(problem.grid, Some(&problem.survey.surface));
             let coverage = inversion::coverage(problem, &on_grid).map_err(wrap)?;
             Some(Judged {

@@ -582,14 +582,20 @@ struct Fitted {
     networks: Option<crate::pinn::TrainedModel>,
 }
 
+/// The judge's times of every pick (s): fast marching through `model`, sampled in
+/// slowness onto a grid of half the inversion's cell. The one fine solve every verdict
+/// rests on (a model of any grid, a true model included).
+pub fn judge_times(problem: &Problem, model: &VelocityGrid) -> Result<Vec<f64>, VerifyError> {
+    let fine = verify::solver_grid(model, &problem.survey.surface, problem.judge_cell_m)?;
+    verify::predict(&problem.survey, &fine, &FmmOptions::default())
+}
+
 /// The judge: fast marching through `model` on a grid of half the inversion's cell
 /// (sampled in slowness) and on the inversion grid.
 pub fn judge(problem: &Problem, model: &VelocityGrid) -> Result<Judgement, VerifyError> {
-    let opts = FmmOptions::default();
-    let fine = verify::solver_grid(model, &problem.survey.surface, problem.judge_cell_m)?;
-    let times = verify::predict(&problem.survey, &fine, &opts)?;
+    let times = judge_times(problem, model)?;
     // the model's own grid is the inversion grid: solved as it is
-    let coarse = verify::predict(&problem.survey, model, &opts)?;
+    let coarse = verify::predict(&problem.survey, model, &FmmOptions::default())?;
     Ok(Judgement {
         cell_m: problem.judge_cell_m,
         misfit: problem.misfit(&times),

@@ -110,7 +110,7 @@ fn embedded(dir: &Path, name: &str) -> anyhow::Result<String> {
 }
 
 /// The table's rows, one per model (truth first), as HTML.
-pub(crate) fn table_rows(cmp: &Comparison) -> String {
+fn table_rows(cmp: &Comparison) -> String {
     let opt = |v: Option<f64>, d: usize| v.map_or("–".to_string(), |v| format!("{v:.d$}"));
     let mut rows = String::new();
     for r in &cmp.rows {
@@ -141,7 +141,6 @@ pub(crate) fn table(cmp: &Comparison) -> String {
 }
 
 fn page(dir: &Path, cmp: &Comparison, picks: &str, reference: &str) -> anyhow::Result<String> {
-    let rows = table_rows(cmp);
     let truth_note = if cmp.truth.is_some() {
         format!(
             "The <b>truth</b> row is the true model judged like the others: its χ² is the floor the picks' noise sets. Model errors are |v − v<sub>true</sub>| / v<sub>true</sub> over the {:.0} % of the section that the rays of every model and of the truth reach; the depth error is the mean |depth − true depth| of {:.0} m/s over the columns where both reach it there.",
@@ -162,7 +161,7 @@ table{{border-collapse:collapse}}td,th{{padding:.2em .7em;text-align:right;borde
 @media print{{h2{{page-break-before:always}}img{{max-width:100%;page-break-inside:avoid}}}}</style></head><body>\
 <h1>Methods compared on the same picks</h1>\
 <p>Picks: <code>{picks}</code>, {n} picks. Every model is put on one grid and judged by the same fast-marching solver on a {cell} m grid (half the inversion cell, sampled in slowness): the RMS and χ² below are not any method's own misfit.</p>\
-<table><tr><th class=\"l\">method</th><th>RMS (ms)</th><th>χ²</th><th>run time (s)</th><th>median error (%)</th><th>90th pct error (%)</th><th>depth error of {iso:.0} m/s (m)</th><th>ray coverage (%)</th><th>picks</th><th class=\"l\">what ran</th></tr>\n{rows}</table>\
+{table}\
 <p>{truth_note}</p>{shared_note}\
 <h2>The sections side by side</h2><img src=\"{sections}\" alt=\"every model side by side\">\
 <p>Left: every model on one velocity scale. Right: each model's difference from {reference} in %, blue slower, red faster. Hatched ground is ground that not every model's rays reach; it is left out of every statistic above.</p>\
@@ -173,8 +172,7 @@ table{{border-collapse:collapse}}td,th{{padding:.2em .7em;text-align:right;borde
         picks = escape(picks),
         n = cmp.rows.first().map_or(0, |r| r.picks),
         cell = cmp.judge_cell_m,
-        iso = cmp.iso_velocity_mps,
-        rows = rows,
+        table = table(cmp),
         truth_note = truth_note,
         shared_note = if shared {
             "<p><b>pinn-refined</b> continues the training of <b>pinn</b> (one training, two results); its run time counts the training.</p>"
